@@ -1,0 +1,34 @@
+"""The modelling layer: intractable factors, their estimators' interface, and ``expose``."""
+
+from zhat.model.expose import (
+    ESTIMATE_SUFFIX,
+    INFER_KEY,
+    NOISE_SUFFIX,
+    EstimatedFactor,
+    FactorInfo,
+    estimate_sites,
+    expose,
+    noise_sites,
+)
+from zhat.model.factor import Estimator, IntractableFactor, NotExposedError
+from zhat.model.integrate import IntegratedFactor, integrate_out
+from zhat.model.unnormalized import Family, UnnormalizedDistribution, unnormalized
+
+__all__ = [
+    "ESTIMATE_SUFFIX",
+    "INFER_KEY",
+    "NOISE_SUFFIX",
+    "EstimatedFactor",
+    "Estimator",
+    "FactorInfo",
+    "Family",
+    "IntegratedFactor",
+    "IntractableFactor",
+    "NotExposedError",
+    "UnnormalizedDistribution",
+    "estimate_sites",
+    "expose",
+    "integrate_out",
+    "noise_sites",
+    "unnormalized",
+]

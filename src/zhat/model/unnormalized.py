@@ -1,0 +1,127 @@
+"""Families with an unnormalized density g(x; θ) and an unknown normalizer Z(θ).
+
+    p(x | θ) = g(x; θ) / Z(θ),        Z(θ) = Σ_x g(x; θ)  (or ∫ g(x; θ) dx)
+
+The :func:`unnormalized` decorator turns a log-potential ``log g(x, **params)`` into a family:
+calling the family with parameters gives a NumPyro distribution for
+``numpyro.sample("y", family(**params), obs=y)``. A family can also carry
+
+- ``statistics(x) -> s(x)``: sufficient statistics (exponential families: log g = θ·s(x)),
+- ``simulator(params, x, noise) -> x'``: one MCMC transition that leaves p(· | θ) invariant,
+  driven by explicit noise (``simulator_noise_shape(params, x)`` gives its shape),
+- ``perfect_sampler(params, noise) -> (x, coalesced)``: an exact draw from p(· | θ) given
+  explicit noise, with a flag saying whether it succeeded within its budget,
+- ``default_estimator(family) -> Estimator``: the documented estimator used by
+  :func:`zhat.expose` when the user names none.
+
+The log density of such a site is unavailable; :func:`zhat.expose` replaces it by an estimate.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+from collections.abc import Callable
+from typing import Any
+
+import jax
+import jax.numpy as jnp
+from jax.typing import ArrayLike
+from numpyro.distributions import constraints
+
+from zhat.model.factor import Estimator, IntractableFactor
+
+Array = jax.Array
+LogPotentialFn = Callable[..., Array]
+
+
+@dataclasses.dataclass(frozen=True, eq=False)
+class Family:
+    """A named unnormalized family; call it with parameters to get a distribution."""
+
+    name: str
+    log_potential: LogPotentialFn
+    support: constraints.Constraint = dataclasses.field(default_factory=lambda: constraints.real)
+    event_shape: tuple[int, ...] = ()
+    statistics: Callable[[Array], Array] | None = None
+    simulator: Callable[[dict[str, Array], Array, Array], Array] | None = None
+    simulator_noise_shape: Callable[[dict[str, Array], Array], tuple[int, ...]] | None = None
+    perfect_sampler: Callable[[dict[str, Array], Array], tuple[Array, Array]] | None = None
+    perfect_noise_shape: Callable[[dict[str, Array]], tuple[int, ...]] | None = None
+    default_estimator: Callable[[Family], Estimator] | None = None
+
+    def __call__(self, *, event_shape: tuple[int, ...] | None = None, **params: ArrayLike):
+        shape = self.event_shape if event_shape is None else tuple(event_shape)
+        return UnnormalizedDistribution(self, params, shape)
+
+    def __repr__(self) -> str:
+        return f"Family({self.name!r})"
+
+
+class UnnormalizedDistribution(IntractableFactor):
+    """A member g(·; θ)/Z(θ) of a :class:`Family` at fixed parameters θ."""
+
+    kind = "unnormalized family"
+    pytree_data_fields = ("params",)
+    pytree_aux_fields = ("family",)
+
+    def __init__(
+        self, family: Family, params: dict[str, ArrayLike], event_shape: tuple[int, ...] = ()
+    ) -> None:
+        self.family = family
+        self.params = {k: jnp.asarray(v) for k, v in params.items()}
+        default = family.default_estimator(family) if family.default_estimator else None
+        super().__init__(batch_shape=(), event_shape=event_shape, estimator=default)
+
+    @property
+    def kind(self) -> str:  # type: ignore[override]
+        return f"unnormalized family '{self.family.name}'"
+
+    @property
+    def support(self) -> constraints.Constraint:  # type: ignore[override]
+        return self.family.support
+
+    def log_potential(self, x: ArrayLike) -> Array:
+        """log g(x; θ), the unnormalized log density (no normalizer)."""
+        return jnp.asarray(self.family.log_potential(jnp.asarray(x), **self.params))
+
+    def statistics(self, x: ArrayLike) -> Array:
+        """Sufficient statistics s(x); a clear error if the family declares none."""
+        if self.family.statistics is None:
+            raise ValueError(f"Family '{self.family.name}' declares no sufficient statistics.")
+        return jnp.asarray(self.family.statistics(jnp.asarray(x)))
+
+
+def unnormalized(
+    log_potential: LogPotentialFn | None = None,
+    *,
+    name: str | None = None,
+    support: constraints.Constraint = constraints.real,
+    event_shape: tuple[int, ...] = (),
+    **extras: Any,
+) -> Family | Callable[[LogPotentialFn], Family]:
+    """Turn a log-potential ``log g(x, **params)`` into a :class:`Family`.
+
+    Usable bare (``@unnormalized``) or with options (``@unnormalized(support=..., simulator=...)``);
+    ``extras`` are the optional :class:`Family` fields (statistics, simulator, perfect sampler,
+    default estimator).
+    """
+    fields = {f.name for f in dataclasses.fields(Family)}
+    unknown = sorted(set(extras) - fields)
+    if unknown:
+        raise TypeError(
+            f"unnormalized() got unknown options {unknown}; the options are "
+            f"{sorted(fields - {'name', 'log_potential'})}."
+        )
+
+    def build(fn: LogPotentialFn) -> Family:
+        if not callable(fn):
+            raise TypeError(f"unnormalized() needs a log-potential function, got {fn!r}.")
+        return Family(
+            name=name or getattr(fn, "__name__", "family"),
+            log_potential=fn,
+            support=support,
+            event_shape=tuple(event_shape),
+            **extras,
+        )
+
+    return build if log_potential is None else build(log_potential)
