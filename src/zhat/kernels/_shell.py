@@ -86,9 +86,7 @@ class ModelKernel(MCMCKernel):
     def _check_sites(self, model_trace: dict[str, Any], sites: Sequence[str]) -> None:
         """Validate the block's sites against the prototype trace (raise a clear error)."""
 
-    def _algorithm(
-        self, model_trace: dict[str, Any], num_warmup: int
-    ) -> tuple[Callable, Callable]:
+    def _algorithm(self, model_trace: dict[str, Any], num_warmup: int) -> tuple[Callable, Callable]:
         raise NotImplementedError
 
     def _block_logdensity(
@@ -149,9 +147,7 @@ class ModelKernel(MCMCKernel):
             if init_params:
                 missing = sorted(set(sites) - set(init_params))
                 if missing:
-                    raise ValueError(
-                        f"{type(self).__name__}: `init_params` lacks sites {missing}."
-                    )
+                    raise ValueError(f"{type(self).__name__}: `init_params` lacks sites {missing}.")
                 values = {s: jnp.asarray(init_params[s]) for s in sites}
             else:
                 proto = prototype_trace(self._model, key_trace, model_args, model_kwargs)
@@ -178,7 +174,9 @@ class ModelKernel(MCMCKernel):
             return jax.vmap(one)(state)
         return one(state)
 
-    def refresh(self, state: BlockState, model_args: tuple, model_kwargs: dict | None) -> BlockState:
+    def refresh(
+        self, state: BlockState, model_args: tuple, model_kwargs: dict | None
+    ) -> BlockState:
         """Recompute the cached log density at ``state.z`` for the new conditioning."""
         logdensity_fn = self.logdensity_fn(model_args, model_kwargs)
         return state._replace(logdensity=logdensity_fn(state.z))

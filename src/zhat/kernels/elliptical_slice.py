@@ -23,7 +23,7 @@ import jax.numpy as jnp
 from jax import random
 
 from zhat.kernels._shell import AlgorithmState, LogDensityFn, ModelKernel
-from zhat.model.expose import INFER_KEY
+from zhat.model.expose import is_noise_site
 
 Array = jax.Array
 
@@ -78,9 +78,7 @@ class EllipticalSlice(ModelKernel):
     """
 
     def _check_sites(self, model_trace: dict[str, Any], sites: Sequence[str]) -> None:
-        other = [
-            s for s in sites if model_trace[s]["infer"].get(INFER_KEY, {}).get("role") != "noise"
-        ]
+        other = [s for s in sites if not is_noise_site(model_trace[s])]
         if other:
             raise ValueError(
                 f"EllipticalSlice updates the noise sites of an exposed model only; {other} "
@@ -103,4 +101,4 @@ class EllipticalSlice(ModelKernel):
         return loglik
 
     def get_diagnostics_str(self, state: Any) -> str:
-        return "ess evals {}".format(jnp.asarray(state.info.subiter).tolist())
+        return f"ess evals {jnp.asarray(state.info.subiter).tolist()}"

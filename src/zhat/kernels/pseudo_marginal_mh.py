@@ -31,7 +31,7 @@ from jax import random
 from jax.flatten_util import ravel_pytree
 
 from zhat.kernels._shell import AlgorithmState, LogDensityFn, ModelKernel
-from zhat.model.expose import INFER_KEY
+from zhat.model.expose import is_noise_site
 
 Array = jax.Array
 
@@ -103,7 +103,7 @@ def build_kernel(
         keys = random.split(key_noise, max(len(noise_sites), 1))
         new_noise = {
             s: rho * noise[s] + rho_c * random.normal(k, noise[s].shape, noise[s].dtype)
-            for s, k in zip(noise_sites, keys)
+            for s, k in zip(noise_sites, keys[: len(noise_sites)], strict=True)
         }
         proposal = {**new_params, **new_noise}
         new_logdensity = logdensity_fn(proposal)
@@ -166,9 +166,7 @@ class PseudoMarginalMH(ModelKernel):
         super().__init__(model)
 
     def _algorithm(self, model_trace: dict[str, Any], num_warmup: int) -> tuple[Callable, Callable]:
-        noise = [
-            s for s in self._sites if model_trace[s]["infer"].get(INFER_KEY, {}).get("role") == "noise"
-        ]
+        noise = [s for s in self._sites if is_noise_site(model_trace[s])]
         params = [s for s in self._sites if s not in noise]
         return build_kernel(params, noise, num_warmup, **self._options)
 

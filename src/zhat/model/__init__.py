@@ -8,6 +8,7 @@ from zhat.model.expose import (
     FactorInfo,
     estimate_sites,
     expose,
+    is_noise_site,
     noise_sites,
 )
 from zhat.model.factor import Estimator, IntractableFactor, NotExposedError
@@ -29,6 +30,7 @@ __all__ = [
     "estimate_sites",
     "expose",
     "integrate_out",
+    "is_noise_site",
     "noise_sites",
     "unnormalized",
 ]

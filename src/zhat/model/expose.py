@@ -84,7 +84,9 @@ class expose(Messenger):
                 f"Estimator; got {type(estimators).__name__}."
             )
         if isinstance(estimators, Mapping):
-            bad = {k: type(v).__name__ for k, v in estimators.items() if not isinstance(v, Estimator)}
+            bad = {
+                k: type(v).__name__ for k, v in estimators.items() if not isinstance(v, Estimator)
+            }
             if bad:
                 raise TypeError(f"expose(estimators=...) values must be Estimators; got {bad}.")
         self.estimators = estimators
@@ -167,13 +169,14 @@ class expose(Messenger):
         return found
 
 
+def is_noise_site(site: dict[str, Any]) -> bool:
+    """Whether a trace site is a noise site added by :class:`expose`."""
+    return site["type"] == "sample" and site["infer"].get(INFER_KEY, {}).get("role") == "noise"
+
+
 def noise_sites(model_trace: Mapping[str, dict[str, Any]]) -> tuple[str, ...]:
     """Names of the noise sites of an exposed model's trace, in trace order."""
-    return tuple(
-        name
-        for name, site in model_trace.items()
-        if site["type"] == "sample" and site["infer"].get(INFER_KEY, {}).get("role") == "noise"
-    )
+    return tuple(name for name, site in model_trace.items() if is_noise_site(site))
 
 
 def estimate_sites(model_trace: Mapping[str, dict[str, Any]]) -> dict[str, dict[str, Any]]:
@@ -181,6 +184,5 @@ def estimate_sites(model_trace: Mapping[str, dict[str, Any]]) -> dict[str, dict[
     return {
         name: site["infer"][INFER_KEY]
         for name, site in model_trace.items()
-        if site["type"] == "sample"
-        and site["infer"].get(INFER_KEY, {}).get("role") == "estimate"
+        if site["type"] == "sample" and site["infer"].get(INFER_KEY, {}).get("role") == "estimate"
     }

@@ -60,7 +60,6 @@ class Family:
 class UnnormalizedDistribution(IntractableFactor):
     """A member g(·; θ)/Z(θ) of a :class:`Family` at fixed parameters θ."""
 
-    kind = "unnormalized family"
     pytree_data_fields = ("params",)
     pytree_aux_fields = ("family",)
 
