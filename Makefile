@@ -13,7 +13,7 @@ $(STAMP): pyproject.toml
 	touch $(STAMP)
 
 demo: $(STAMP)
-	$(BIN)/python examples/forest_canopy.py
+	$(BIN)/python examples/moth_traps.py
 
 test: $(STAMP)
 	$(BIN)/ruff check src tests benchmarks examples

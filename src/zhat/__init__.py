@@ -6,7 +6,7 @@ family, or a latent block :func:`integrate_out`), choose an estimator from
 space, e.g. :func:`zhat.kernels.pseudo_marginal_gibbs`.
 """
 
-from zhat import estimators, kernels
+from zhat import check, estimators, kernels
 from zhat.kernels import MCMC
 from zhat.model import (
     Estimator,
@@ -27,6 +27,7 @@ __all__ = [
     "Family",
     "IntractableFactor",
     "NotExposedError",
+    "check",
     "estimators",
     "expose",
     "integrate_out",

@@ -75,7 +75,7 @@ def importance_sampling(num_draws: int = 16, *, per_group: bool = False) -> Esti
 
     def log_estimate(factor: IntractableFactor, data: Array, noise: Array) -> Array:
         factor = _require_integrated(factor)
-        loc, scale = factor.proposal_loc, factor.proposal_scale
+        loc, scale = factor.proposal_loc[None], factor.proposal_scale[None]
         draws = loc + scale * noise
         log_q_terms = -0.5 * noise**2 - jnp.log(scale) - 0.5 * math.log(2 * math.pi)
         log_joint = jax.vmap(factor.log_joint)(draws)
@@ -104,4 +104,5 @@ def importance_sampling(num_draws: int = 16, *, per_group: bool = False) -> Esti
         unbiased=True,
         smooth=True,
         note="unbiased; smooth in (θ, u)",
+        num_draws=num_draws,
     )

@@ -91,7 +91,24 @@ class expose(Messenger):
                 raise TypeError(f"expose(estimators=...) values must be Estimators; got {bad}.")
         self.estimators = estimators
         self.record = record
+        self._names: dict[str, str] = {}
+        self._emitting = False
         super().__init__(fn)
+
+    def __enter__(self):
+        self._names, self._emitting = {}, False
+        return super().__enter__()
+
+    def _claim(self, name: str, owner: str) -> None:
+        """Register a site name; a clash with a name zhat adds is an error naming both."""
+        if name in self._names:
+            first, second = self._names[name], owner
+            raise ValueError(
+                f"Site name '{name}' is used twice ({first}; {second}). zhat adds the sites "
+                f"'<factor>{NOISE_SUFFIX}' and '<factor>{ESTIMATE_SUFFIX}' for each intractable "
+                "factor: rename the model's own site."
+            )
+        self._names[name] = owner
 
     def _estimator_for(self, name: str, factor: IntractableFactor) -> Estimator:
         if isinstance(self.estimators, Estimator):
@@ -108,6 +125,17 @@ class expose(Messenger):
         return chosen
 
     def process_message(self, msg: dict[str, Any]) -> None:
+        wrapped = _wrapped_factor(msg["fn"]) if msg["type"] == "sample" else None
+        if wrapped is not None:
+            raise ValueError(
+                f"The {wrapped.kind} at site '{msg['name']}' sits inside a plate or was "
+                "expanded, masked or reshaped. Give each independent replicate its own site "
+                "(a Python loop over sites), or one factor whose estimator sums the replicates."
+            )
+        if self._emitting:
+            return
+        if msg["type"] in ("sample", "deterministic"):
+            self._claim(msg["name"], "a site of the model")
         if msg["type"] != "sample" or not isinstance(msg["fn"], IntractableFactor):
             return
         name, factor = msg["name"], msg["fn"]
@@ -126,15 +154,24 @@ class expose(Messenger):
         data = msg["value"]
         shape = tuple(int(n) for n in estimator.noise_shape(factor, data))
         noise_name = name + NOISE_SUFFIX
+        self._claim(noise_name, f"the noise site of factor '{name}'")
+        if self.record:
+            self._claim(name + ESTIMATE_SUFFIX, f"the log estimate of factor '{name}'")
         tag = {"role": "noise", "factor": name, "estimator": estimator.name}
-        noise = numpyro.sample(
-            noise_name,
-            dist.Normal(0.0, 1.0).expand(shape).to_event(len(shape)),
-            infer={INFER_KEY: tag},
-        )
-        log_fhat = as_scalar_log(
-            estimator.log_estimate(factor, data, noise), f"Estimator '{estimator.name}'"
-        )
+        self._emitting = True
+        try:
+            noise = numpyro.sample(
+                noise_name,
+                dist.Normal(0.0, 1.0).expand(shape).to_event(len(shape)),
+                infer={INFER_KEY: tag},
+            )
+            log_fhat = as_scalar_log(
+                estimator.log_estimate(factor, data, noise), f"Estimator '{estimator.name}'"
+            )
+            if self.record:
+                numpyro.deterministic(name + ESTIMATE_SUFFIX, log_fhat)
+        finally:
+            self._emitting = False
         msg["fn"] = EstimatedFactor(log_fhat, jnp.shape(data))
         msg["infer"] = {
             **msg["infer"],
@@ -145,8 +182,6 @@ class expose(Messenger):
                 "estimator": estimator,
             },
         }
-        if self.record:
-            numpyro.deterministic(name + ESTIMATE_SUFFIX, log_fhat)
 
     def describe(self, *args: Any, **kwargs: Any) -> list[FactorInfo]:
         """Trace the model abstractly (no computation) and list what was exposed where."""
@@ -167,6 +202,16 @@ class expose(Messenger):
 
         jax.eval_shape(run)
         return found
+
+
+def _wrapped_factor(fn: Any) -> IntractableFactor | None:
+    """The intractable factor inside NumPyro's wrappers (expand, to_event, mask), if any."""
+    wrappers = (dist.ExpandedDistribution, dist.Independent, dist.MaskedDistribution)
+    while isinstance(fn, wrappers):
+        fn = fn.base_dist
+        if isinstance(fn, IntractableFactor):
+            return fn
+    return None
 
 
 def is_noise_site(site: dict[str, Any]) -> bool:

@@ -46,6 +46,8 @@ class Estimator(NamedTuple):
     - **smooth** - ``True`` when log f̂ is differentiable in (θ, u), so gradient-based kernels
       (NUTS, HMC) may act on the joint space; otherwise use slice or Gibbs blocks.
     - **note** - one line on what the estimator assumes (shown in summaries).
+    - **num_draws** - the number of averaged draws, when that is what sets its variance
+      (used to recommend a number for a target noise level).
     """
 
     name: str
@@ -54,6 +56,7 @@ class Estimator(NamedTuple):
     unbiased: bool
     smooth: bool
     note: str = ""
+    num_draws: int | None = None
 
 
 class IntractableFactor(Distribution):
