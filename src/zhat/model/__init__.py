@@ -13,7 +13,13 @@ from zhat.model.expose import (
 )
 from zhat.model.factor import Estimator, IntractableFactor, NotExposedError
 from zhat.model.integrate import IntegratedFactor, integrate_out
-from zhat.model.unnormalized import Family, UnnormalizedDistribution, unnormalized
+from zhat.model.unnormalized import (
+    Family,
+    PerfectSampler,
+    Transition,
+    UnnormalizedDistribution,
+    unnormalized,
+)
 
 __all__ = [
     "ESTIMATE_SUFFIX",
@@ -26,6 +32,8 @@ __all__ = [
     "IntegratedFactor",
     "IntractableFactor",
     "NotExposedError",
+    "PerfectSampler",
+    "Transition",
     "UnnormalizedDistribution",
     "estimate_sites",
     "expose",

@@ -152,6 +152,7 @@ class expose(Messenger):
             )
         estimator = self._estimator_for(name, factor)
         data = msg["value"]
+        factor.validate_data(data, name)
         shape = tuple(int(n) for n in estimator.noise_shape(factor, data))
         noise_name = name + NOISE_SUFFIX
         self._claim(noise_name, f"the noise site of factor '{name}'")

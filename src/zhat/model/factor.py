@@ -84,6 +84,9 @@ class IntractableFactor(Distribution):
         """The estimator used when none is given: the site's own, else the family's default."""
         return self._estimator
 
+    def validate_data(self, value: ArrayLike, site: str) -> None:
+        """Raise a clear error when concrete observed data cannot come from this factor."""
+
     def log_prob(self, value: ArrayLike) -> Array:
         site = _calling_site_name(self)
         where = f"site '{site}'" if site else "a site"

@@ -7,12 +7,17 @@ calling the family with parameters gives a NumPyro distribution for
 ``numpyro.sample("y", family(**params), obs=y)``. A family can also carry
 
 - ``statistics(x) -> s(x)``: sufficient statistics (exponential families: log g = θ·s(x)),
-- ``simulator(params, x, noise) -> x'``: one MCMC transition that leaves p(· | θ) invariant,
-  driven by explicit noise (``simulator_noise_shape(params, x)`` gives its shape),
-- ``perfect_sampler(params, noise) -> (x, coalesced)``: an exact draw from p(· | θ) given
-  explicit noise, with a flag saying whether it succeeded within its budget,
+- ``simulators``: named :class:`Transition` s, each one MCMC transition leaving p(· | θ)
+  invariant, driven by explicit noise (the first is the default),
+- ``perfect_sampler``: a :class:`PerfectSampler`, an exact draw from p(· | θ) given explicit
+  noise, with a flag saying whether it succeeded within its budget,
 - ``default_estimator(family) -> Estimator``: the documented estimator used by
-  :func:`zhat.expose` when the user names none.
+  :func:`zhat.expose` when the user names none,
+- ``validate(x)``: raise a clear error for data outside the family (wrong labels, shape, NaN),
+- ``pseudo_log_likelihood(x, **params)``: Σ_i log p(x_i | x_{−i}; θ) (Besag 1975),
+- ``free_parameters``: the parameter names a point estimate fits (others are fixed inputs,
+  e.g. covariates),
+- ``structure``: the fixed structure the family lives on (e.g. a neighbour graph).
 
 The log density of such a site is unavailable; :func:`zhat.expose` replaces it by an estimate.
 """
@@ -20,8 +25,8 @@ The log density of such a site is unavailable; :func:`zhat.expose` replaces it b
 from __future__ import annotations
 
 import dataclasses
-from collections.abc import Callable
-from typing import Any
+from collections.abc import Callable, Mapping
+from typing import Any, NamedTuple
 
 import jax
 import jax.numpy as jnp
@@ -34,6 +39,32 @@ Array = jax.Array
 LogPotentialFn = Callable[..., Array]
 
 
+class Transition(NamedTuple):
+    """One MCMC transition of a family driven by explicit standard-normal noise.
+
+    - **step** - ``(params, x, noise) -> x'``, leaving p(· | θ) invariant.
+    - **noise_shape** - ``(x) -> shape`` of the noise one step uses.
+    """
+
+    step: Callable[[dict[str, Array], Array, Array], Array]
+    noise_shape: Callable[[Array], tuple[int, ...]]
+
+
+class PerfectSampler(NamedTuple):
+    """Exact draws of a family from explicit standard-normal noise.
+
+    - **draw** - ``(params, noise) -> (x, exact)``; ``exact`` is False when the budget ran out
+      (the draw is then not exact) or the parameters are outside what the sampler handles.
+    - **noise_shape** - ``(budget) -> shape`` of the noise one draw uses for a budget (e.g.
+      the largest number of sweeps).
+    - **conditions** - one line on when it applies (e.g. 'coupling ≥ 0 or a bipartite graph').
+    """
+
+    draw: Callable[[dict[str, Array], Array], tuple[Array, Array]]
+    noise_shape: Callable[[int], tuple[int, ...]]
+    conditions: str = ""
+
+
 @dataclasses.dataclass(frozen=True, eq=False)
 class Family:
     """A named unnormalized family; call it with parameters to get a distribution."""
@@ -43,11 +74,13 @@ class Family:
     support: constraints.Constraint = dataclasses.field(default_factory=lambda: constraints.real)
     event_shape: tuple[int, ...] = ()
     statistics: Callable[[Array], Array] | None = None
-    simulator: Callable[[dict[str, Array], Array, Array], Array] | None = None
-    simulator_noise_shape: Callable[[dict[str, Array], Array], tuple[int, ...]] | None = None
-    perfect_sampler: Callable[[dict[str, Array], Array], tuple[Array, Array]] | None = None
-    perfect_noise_shape: Callable[[dict[str, Array]], tuple[int, ...]] | None = None
+    simulators: Mapping[str, Transition] = dataclasses.field(default_factory=dict)
+    perfect_sampler: PerfectSampler | None = None
     default_estimator: Callable[[Family], Estimator] | None = None
+    validate: Callable[[Array], None] | None = None
+    pseudo_log_likelihood: Callable[..., Array] | None = None
+    free_parameters: tuple[str, ...] = ()
+    structure: Any = None
 
     def __call__(self, *, event_shape: tuple[int, ...] | None = None, **params: ArrayLike):
         shape = self.event_shape if event_shape is None else tuple(event_shape)
@@ -79,9 +112,21 @@ class UnnormalizedDistribution(IntractableFactor):
     def support(self) -> constraints.Constraint:  # type: ignore[override]
         return self.family.support
 
+    def validate_data(self, value: ArrayLike, site: str) -> None:
+        if self.family.validate is None or isinstance(value, jax.core.Tracer):
+            return
+        try:
+            self.family.validate(value)
+        except (ValueError, TypeError) as err:
+            raise type(err)(f"Site '{site}' ({self.family.name}): {err}") from err
+
     def log_potential(self, x: ArrayLike) -> Array:
         """log g(x; θ), the unnormalized log density (no normalizer)."""
         return jnp.asarray(self.family.log_potential(jnp.asarray(x), **self.params))
+
+    def with_params(self, **params: ArrayLike) -> UnnormalizedDistribution:
+        """The same family at other parameter values (the rest unchanged)."""
+        return UnnormalizedDistribution(self.family, {**self.params, **params}, self.event_shape)
 
     def statistics(self, x: ArrayLike) -> Array:
         """Sufficient statistics s(x); a clear error if the family declares none."""
@@ -101,8 +146,8 @@ def unnormalized(
     """Turn a log-potential ``log g(x, **params)`` into a :class:`Family`.
 
     Usable bare (``@unnormalized``) or with options (``@unnormalized(support=..., simulator=...)``);
-    ``extras`` are the optional :class:`Family` fields (statistics, simulator, perfect sampler,
-    default estimator).
+    ``extras`` are the optional :class:`Family` fields (statistics, simulators, perfect sampler,
+    default estimator, validate, pseudo-log-likelihood, free parameters).
     """
     fields = {f.name for f in dataclasses.fields(Family)}
     unknown = sorted(set(extras) - fields)
