@@ -43,6 +43,7 @@ from jax import lax
 from jax.scipy.special import logsumexp
 
 from zhat.estimators._reference import ReferenceCache
+from zhat.estimators.draws import AuxiliaryDraws
 from zhat.model.factor import Estimator, IntractableFactor
 from zhat.model.unnormalized import UnnormalizedDistribution
 
@@ -58,55 +59,6 @@ def _require_family(factor: IntractableFactor, what: str) -> UnnormalizedDistrib
             f"{factor.kind}. For latent blocks use zhat.estimators.importance_sampling."
         )
     return factor
-
-
-class _Draws:
-    """How x_0 is obtained: a perfect draw, or a finite simulator run from the data."""
-
-    def __init__(self, sampler: str, sweeps: int, budget: int, what: str) -> None:
-        if not isinstance(sweeps, int) or sweeps < 1:
-            raise ValueError(f"sweeps must be a positive integer, got {sweeps!r}.")
-        if not isinstance(budget, int) or budget < 1:
-            raise ValueError(f"budget must be a positive integer, got {budget!r}.")
-        self.sampler, self.sweeps, self.budget, self.what = sampler, sweeps, budget, what
-
-    @property
-    def exact(self) -> bool:
-        return self.sampler == "perfect"
-
-    def check(self, dist: UnnormalizedDistribution) -> None:
-        family = dist.family
-        if self.exact and family.perfect_sampler is None:
-            raise ValueError(
-                f"{self.what}(sampler='perfect'): family '{family.name}' has no perfect sampler. "
-                f"Use a simulator instead (one of {sorted(family.simulators)}), which makes the "
-                "estimator approximate."
-            )
-        if not self.exact and self.sampler not in family.simulators:
-            raise ValueError(
-                f"{self.what}: family '{family.name}' has no simulator '{self.sampler}'; it has "
-                f"{sorted(family.simulators)} and "
-                f"{'a' if family.perfect_sampler else 'no'} perfect sampler."
-            )
-
-    def size(self, dist: UnnormalizedDistribution, data: Array) -> int:
-        family = dist.family
-        if self.exact:
-            shape = family.perfect_sampler.noise_shape(self.budget)
-        else:
-            shape = (self.sweeps, *family.simulators[self.sampler].noise_shape(data))
-        return math.prod(shape), shape
-
-    def draw(self, dist: UnnormalizedDistribution, data: Array, noise: Array, shape):
-        family = dist.family
-        noise = noise.reshape(shape)
-        if self.exact:
-            x, ok = family.perfect_sampler.draw(dist.params, noise)
-            return x, ok
-        step = family.simulators[self.sampler].step
-        x0 = jnp.asarray(data).reshape(-1).astype(noise.dtype)
-        x = lax.scan(lambda x, z: (step(dist.params, x, z), None), x0, noise)[0]
-        return x, jnp.array(True)
 
 
 def _interpolate(theta: dict[str, Array], ref: dict[str, Array], names, t: Array):
@@ -187,7 +139,7 @@ def _auxiliary(
 ) -> Estimator:
     if not isinstance(num_draws, int) or num_draws < 1:
         raise ValueError(f"num_draws must be a positive integer, got {num_draws!r}.")
-    draws = _Draws(sampler, sweeps, budget, what)
+    draws = AuxiliaryDraws(sampler, sweeps, budget, what)
     references = ReferenceCache(reference)
 
     def layout(dist: UnnormalizedDistribution, data: Array):

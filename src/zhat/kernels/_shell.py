@@ -66,7 +66,7 @@ class ModelKernel(MCMCKernel):
     """Shell around pure ``init``/``step`` functions; subclasses define the algorithm.
 
     Subclasses implement :meth:`_algorithm` returning ``(init, step)`` for the block's sites,
-    and may override :meth:`_check_sites` and :meth:`_block_logdensity`.
+    and may override :meth:`_check_sites`, :meth:`_block_logdensity` and :meth:`_target`.
     """
 
     sample_field = "z"
@@ -88,6 +88,10 @@ class ModelKernel(MCMCKernel):
 
     def _algorithm(self, model_trace: dict[str, Any], num_warmup: int) -> tuple[Callable, Callable]:
         raise NotImplementedError
+
+    def _target(self, model_args: tuple, model_kwargs: dict | None) -> Any:
+        """What the algorithm's pure functions receive; by default the log density function."""
+        return self.logdensity_fn(model_args, model_kwargs)
 
     def _block_logdensity(
         self, model_args: tuple, model_kwargs: dict, full: LogDensityFn
@@ -140,7 +144,7 @@ class ModelKernel(MCMCKernel):
         self._transforms = {s: biject_to(model_trace[s]["fn"].support) for s in sites}
         algo_init, algo_step = self._algorithm(model_trace, num_warmup)
         self._step_fn = algo_step
-        logdensity_fn = self.logdensity_fn(model_args, model_kwargs)
+        target = self._target(model_args, model_kwargs)
 
         def init_one(key: Array) -> BlockState:
             key, key_trace = random.split(key)
@@ -153,7 +157,7 @@ class ModelKernel(MCMCKernel):
                 proto = prototype_trace(self._model, key_trace, model_args, model_kwargs)
                 values = {s: proto[s]["value"] for s in sites}
             z = transform_fn(self._transforms, values, invert=True)
-            algo_state = algo_init(z, logdensity_fn)
+            algo_state = algo_init(z, target)
             return BlockState(z, algo_state.logdensity, algo_state.info, algo_state.carry, key)
 
         state = jax.vmap(init_one)(rng_key) if vectorized else init_one(rng_key)
@@ -162,12 +166,12 @@ class ModelKernel(MCMCKernel):
 
     def sample(self, state: BlockState, model_args: tuple, model_kwargs: dict | None) -> BlockState:
         assert self._step_fn is not None, "`init` must be called before `sample`."
-        logdensity_fn = self.logdensity_fn(model_args, model_kwargs)
+        target = self._target(model_args, model_kwargs)
         step = self._step_fn
 
         def one(state: BlockState) -> BlockState:
             key, key_step = random.split(state.rng_key)
-            new, info = step(key_step, state, logdensity_fn)
+            new, info = step(key_step, state, target)
             return BlockState(new.z, new.logdensity, info, new.carry, key)
 
         if not is_prng_key(state.rng_key):

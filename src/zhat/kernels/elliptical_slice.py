@@ -22,8 +22,8 @@ import jax
 import jax.numpy as jnp
 from jax import random
 
-from zhat.kernels._shell import AlgorithmState, LogDensityFn, ModelKernel
-from zhat.model.expose import is_noise_site
+from zhat.kernels._noise import NoiseKernel
+from zhat.kernels._shell import AlgorithmState, LogDensityFn
 
 Array = jax.Array
 
@@ -68,7 +68,7 @@ def build_kernel(sites: Sequence[str], max_subiter: int | None = None) -> tuple[
     return init, step
 
 
-class EllipticalSlice(ModelKernel):
+class EllipticalSlice(NoiseKernel):
     """Elliptical slice sampling of noise sites; a block kernel for NumPyro's ``Gibbs``.
 
     :param model: the exposed model (``zhat.expose(model)``).
@@ -77,28 +77,8 @@ class EllipticalSlice(ModelKernel):
     or through :func:`zhat.kernels.pseudo_marginal_gibbs`.
     """
 
-    def _check_sites(self, model_trace: dict[str, Any], sites: Sequence[str]) -> None:
-        other = [s for s in sites if not is_noise_site(model_trace[s])]
-        if other:
-            raise ValueError(
-                f"EllipticalSlice updates the noise sites of an exposed model only; {other} "
-                "are not noise sites. Give them another block (NUTS, zhat.kernels.Slice), e.g. "
-                "`Gibbs([(NUTS(m), None), (EllipticalSlice(m), zhat.noise_sites)])`."
-            )
-
     def _algorithm(self, model_trace: dict[str, Any], num_warmup: int) -> tuple[Callable, Callable]:
         return build_kernel(self._sites)
-
-    def _block_logdensity(
-        self, model_args: tuple, model_kwargs: dict, full: LogDensityFn
-    ) -> LogDensityFn:
-        sites = self._sites
-
-        def loglik(z: dict[str, Array]) -> Array:
-            prior = sum(-0.5 * jnp.sum(jnp.square(z[s])) for s in sites)
-            return full(z) - prior
-
-        return loglik
 
     def get_diagnostics_str(self, state: Any) -> str:
         return f"ess evals {jnp.asarray(state.info.subiter).tolist()}"

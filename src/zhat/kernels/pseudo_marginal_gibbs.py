@@ -1,11 +1,17 @@
 """``pseudo_marginal_gibbs``: parameters and estimator noise updated in alternation.
 
 The exposed target π(θ, u) ∝ p(θ) f̂(θ, u) N(u; 0, I) is sampled by NumPyro's composable
-``Gibbs``: a parameter kernel moves θ with u held fixed (NUTS by default), then elliptical slice
-sampling moves each noise site with θ held fixed. Because u is never redrawn from scratch, a
-lucky overestimate of f̂ is gradually forgotten instead of trapping the chain, which is what
-makes standard pseudo-marginal MH stick (Murray & Graham 2016, AISTATS, "Pseudo-marginal slice
-sampling").
+``Gibbs``: a parameter kernel moves θ with u held fixed, then a noise kernel moves the noise
+sites with θ held fixed. Because u is never redrawn from scratch, a lucky overestimate of f̂ is
+gradually forgotten instead of trapping the chain, which is what makes standard pseudo-marginal
+MH stick (Murray & Graham 2016, AISTATS, "Pseudo-marginal slice sampling").
+
+Defaults, chosen per model from its estimators when the sampler is initialised:
+
+- every estimator smooth in (θ, u): NUTS on θ, elliptical slice sampling on u;
+- otherwise (e.g. auxiliary draws from a perfect sampler, piecewise constant): slice sampling
+  on θ, and a block refresh of u (one auxiliary draw's noise at a time), which the lattice
+  benchmark (``benchmarks/lattice.py``) found the most efficient of the noise moves offered.
 """
 
 from __future__ import annotations
@@ -19,30 +25,100 @@ from numpyro.infer.hmc import HMC
 from numpyro.infer.mcmc import MCMCKernel
 
 from zhat.kernels.elliptical_slice import EllipticalSlice
+from zhat.kernels.noise_refresh import BlockRefresh
+from zhat.kernels.slice import Slice
 from zhat.model.expose import estimate_sites, noise_sites
 
 __all__ = ["PseudoMarginalGibbs", "pseudo_marginal_gibbs"]
 
 
-class PseudoMarginalGibbs(Gibbs):
-    """NumPyro ``Gibbs`` over (parameters, noise) that checks its blocks suit the estimators."""
+class PseudoMarginalGibbs(MCMCKernel):
+    """NumPyro ``Gibbs`` over (parameters, noise) whose blocks are chosen at ``init``.
 
-    def init(self, rng_key, num_warmup, init_params, model_args, model_kwargs):
-        model_trace = prototype_trace(self.model, rng_key, model_args, model_kwargs or {})
+    :param model: the exposed model.
+    :param theta_kernel: kernel for every non-noise latent site (default: see module docstring).
+    :param noise_kernel: kernel for the noise sites (default: see module docstring).
+    """
+
+    sample_field = "z"
+
+    def __init__(
+        self,
+        model: Callable,
+        theta_kernel: MCMCKernel | None = None,
+        noise_kernel: MCMCKernel | None = None,
+    ) -> None:
+        for role, kernel in (("theta_kernel", theta_kernel), ("noise_kernel", noise_kernel)):
+            if kernel is None:
+                continue
+            if not isinstance(kernel, MCMCKernel):
+                raise TypeError(f"{role} must be a NumPyro MCMCKernel, got {kernel!r}.")
+            if getattr(kernel, "model", None) is not model:
+                raise ValueError(
+                    f"{role} must be built on the same exposed model object passed to "
+                    "pseudo_marginal_gibbs (e.g. `Slice(exposed)` with `exposed = zhat.expose(m)`)."
+                )
+        self._model = model
+        self._theta, self._noise = theta_kernel, noise_kernel
+        self._gibbs: Gibbs | None = None
+
+    @property
+    def model(self) -> Callable:
+        return self._model
+
+    @property
+    def gibbs(self) -> Gibbs:
+        """The NumPyro ``Gibbs`` kernel actually run (available after ``init``)."""
+        if self._gibbs is None:
+            raise RuntimeError("The blocks are chosen at `init`; run the sampler first.")
+        return self._gibbs
+
+    @property
+    def default_fields(self) -> tuple[str, ...]:
+        return ("z",)
+
+    def _choose(self, model_trace: dict[str, Any]) -> Gibbs:
         if not noise_sites(model_trace):
             raise ValueError(
                 "pseudo_marginal_gibbs found no noise sites: the model has no intractable "
                 "factor, or was not wrapped with `zhat.expose(model)`."
             )
         rough = [n for n, tag in estimate_sites(model_trace).items() if not tag["estimator"].smooth]
-        theta_kernel = self.blocks[0][0]
-        if rough and isinstance(theta_kernel, HMC):
+        theta = self._theta or (Slice(self._model) if rough else NUTS(self._model))
+        noise = self._noise or (
+            BlockRefresh(self._model) if rough else EllipticalSlice(self._model)
+        )
+        if rough and isinstance(theta, HMC):
             raise ValueError(
                 f"The estimators at {rough} are not smooth in the parameters, so a gradient "
-                f"kernel ({type(theta_kernel).__name__}) cannot update them. Use "
+                f"kernel ({type(theta).__name__}) cannot update them. Use "
                 "`pseudo_marginal_gibbs(model, theta_kernel=zhat.kernels.Slice(model))`."
             )
-        return super().init(rng_key, num_warmup, init_params, model_args, model_kwargs)
+        return Gibbs([(theta, None), (noise, noise_sites)])
+
+    def init(self, rng_key, num_warmup, init_params, model_args, model_kwargs):
+        model_trace = prototype_trace(self._model, rng_key, model_args, model_kwargs or {})
+        self._gibbs = self._choose(model_trace)
+        return self._gibbs.init(rng_key, num_warmup, init_params, model_args, model_kwargs)
+
+    def sample(self, state, model_args, model_kwargs):
+        return self.gibbs.sample(state, model_args, model_kwargs)
+
+    def refresh(self, state, model_args, model_kwargs):
+        return self.gibbs.refresh(state, model_args, model_kwargs)
+
+    def wrap_model(self, wrapper: Callable) -> PseudoMarginalGibbs:
+        wrap = lambda k: None if k is None else k.wrap_model(wrapper)  # noqa: E731
+        return PseudoMarginalGibbs(wrapper(self._model), wrap(self._theta), wrap(self._noise))
+
+    def get_constrain_fn(self, model_args, model_kwargs):
+        return self.gibbs.get_constrain_fn(model_args, model_kwargs)
+
+    def postprocess_fn(self, model_args, model_kwargs):
+        return self.gibbs.postprocess_fn(model_args, model_kwargs)
+
+    def get_diagnostics_str(self, state) -> str:
+        return self.gibbs.get_diagnostics_str(state)
 
 
 def pseudo_marginal_gibbs(
@@ -50,22 +126,12 @@ def pseudo_marginal_gibbs(
     theta_kernel: MCMCKernel | None = None,
     noise_kernel: MCMCKernel | None = None,
 ) -> PseudoMarginalGibbs:
-    """Build the alternating sampler for an exposed model.
+    """Build the alternating sampler for an exposed model (see :class:`PseudoMarginalGibbs`).
 
-    :param exposed_model: ``zhat.expose(model)``; the same object the kernels are built on.
-    :param theta_kernel: kernel for every non-noise latent site; default ``NUTS(exposed_model)``.
-    :param noise_kernel: kernel for the noise sites; default ``EllipticalSlice(exposed_model)``.
-    :return: a NumPyro ``Gibbs`` kernel for :class:`numpyro.infer.MCMC` or :class:`zhat.MCMC`.
+    :param exposed_model: ``zhat.expose(model)``; the same object any given kernel is built on.
+    :param theta_kernel: kernel for every non-noise latent site.
+    :param noise_kernel: kernel for the noise sites: ``EllipticalSlice``, ``BlockRefresh`` or
+        ``IndependentRefresh`` (all in :mod:`zhat.kernels`).
+    :return: a kernel for :class:`numpyro.infer.MCMC` or :class:`zhat.MCMC`.
     """
-    theta_kernel = NUTS(exposed_model) if theta_kernel is None else theta_kernel
-    noise_kernel = EllipticalSlice(exposed_model) if noise_kernel is None else noise_kernel
-    for role, kernel in (("theta_kernel", theta_kernel), ("noise_kernel", noise_kernel)):
-        if not isinstance(kernel, MCMCKernel):
-            raise TypeError(f"{role} must be a NumPyro MCMCKernel, got {kernel!r}.")
-        if getattr(kernel, "model", None) is not exposed_model:
-            raise ValueError(
-                f"{role} must be built on the same exposed model object passed to "
-                "pseudo_marginal_gibbs (e.g. `Slice(exposed)` with `exposed = zhat.expose(m)`)."
-            )
-    blocks: list[tuple[MCMCKernel, Any]] = [(theta_kernel, None), (noise_kernel, noise_sites)]
-    return PseudoMarginalGibbs(blocks)
+    return PseudoMarginalGibbs(exposed_model, theta_kernel, noise_kernel)

@@ -12,11 +12,8 @@ correlated method of Deligiannidis, Doucet & Pitt (2018, JRSS B 80(5)), Crank–
 Both keep the current estimate until a proposal is accepted, which is what makes chains
 'stick' when sd(log f̂) is large.
 
-During warmup the random-walk scale adapts (adaptive Metropolis, Haario, Saksman & Tamminen
-2001, Bernoulli 7(2)): s tracks the running sd of θ, h moves towards ``target_accept``
-(Robbins–Monro, bounded); after warmup both are frozen, so the sampling phase is a valid chain.
-The default h₀ = 2.56/√d is the optimal scaling of Sherlock, Thiery, Roberts & Rosenthal
-(2015, Ann. Statist. 43(1)).
+During warmup the random-walk scale adapts and is frozen afterwards (see
+``zhat.kernels._random_walk``).
 """
 
 from __future__ import annotations
@@ -30,6 +27,7 @@ import jax.numpy as jnp
 from jax import random
 from jax.flatten_util import ravel_pytree
 
+from zhat.kernels import _random_walk as rw
 from zhat.kernels._shell import AlgorithmState, LogDensityFn, ModelKernel
 from zhat.model.expose import is_noise_site
 
@@ -46,16 +44,6 @@ class PseudoMarginalMHInfo(NamedTuple):
     step_size: Array
 
 
-class Adaptation(NamedTuple):
-    """Warmup adaptation carried between steps (frozen after warmup)."""
-
-    iteration: Array
-    log_step: Array
-    mean: Array
-    m2: Array
-    scale: Array
-
-
 def build_kernel(
     param_sites: Sequence[str],
     noise_sites: Sequence[str],
@@ -68,10 +56,7 @@ def build_kernel(
     """Pure ``(init, step)`` of pseudo-marginal MH over a dict of unconstrained values."""
     if not 0.0 <= correlation < 1.0:
         raise ValueError(f"correlation must lie in [0, 1), got {correlation!r}.")
-    if not 0.0 < target_accept < 1.0:
-        raise ValueError(f"target_accept must lie in (0, 1), got {target_accept!r}.")
-    if not proposal_scale > 0:
-        raise ValueError(f"proposal_scale must be positive, got {proposal_scale!r}.")
+    rw.check_options(proposal_scale, target_accept)
     param_sites, noise_sites = tuple(param_sites), tuple(noise_sites)
     rho, rho_c = correlation, math.sqrt(1.0 - correlation**2)
 
@@ -80,26 +65,17 @@ def build_kernel(
 
     def init(z: dict[str, Array], logdensity_fn: LogDensityFn) -> AlgorithmState:
         flat, _ = ravel_pytree(split(z)[0])
-        d = max(flat.size, 1)
-        adapt = Adaptation(
-            iteration=jnp.zeros((), jnp.int32),
-            log_step=jnp.asarray(math.log(2.56 / math.sqrt(d)), flat.dtype),
-            mean=jnp.zeros_like(flat),
-            m2=jnp.zeros_like(flat),
-            scale=jnp.full_like(flat, proposal_scale),
-        )
+        adapt = rw.init(flat, proposal_scale)
         zero = jnp.zeros((), flat.dtype)
         info = PseudoMarginalMHInfo(zero, jnp.zeros((), bool), jnp.exp(adapt.log_step))
         return AlgorithmState(z, jnp.asarray(logdensity_fn(z)), info, adapt)
 
     def step(rng_key: Array, state: Any, logdensity_fn: LogDensityFn):
         key_theta, key_noise, key_accept = random.split(rng_key, 3)
-        adapt: Adaptation = state.carry
+        adapt: rw.Adaptation = state.carry
         params, noise = split(state.z)
         flat, unravel = ravel_pytree(params)
-        step_size = jnp.exp(adapt.log_step)
-        eps = random.normal(key_theta, flat.shape, flat.dtype)
-        new_params = unravel(flat + step_size * adapt.scale * eps) if flat.size else params
+        new_params = unravel(rw.propose(key_theta, flat, adapt)) if flat.size else params
         keys = random.split(key_noise, max(len(noise_sites), 1))
         new_noise = {
             s: rho * noise[s] + rho_c * random.normal(k, noise[s].shape, noise[s].dtype)
@@ -117,25 +93,17 @@ def build_kernel(
         accepted = random.uniform(key_accept) < accept_prob
         z = jax.tree.map(lambda a, b: jnp.where(accepted, a, b), proposal, state.z)
         logdensity = jnp.where(accepted, new_logdensity, state.logdensity)
-        new_adapt = _adapt(adapt, ravel_pytree(split(z)[0])[0], accept_prob)
+        new_adapt = rw.update(
+            adapt,
+            ravel_pytree(split(z)[0])[0],
+            accept_prob,
+            num_warmup,
+            proposal_scale,
+            target_accept,
+        )
+        step_size = jnp.exp(adapt.log_step)
         info = PseudoMarginalMHInfo(accept_prob.astype(flat.dtype), accepted, step_size)
         return AlgorithmState(z, logdensity, None, new_adapt), info
-
-    def _adapt(adapt: Adaptation, x: Array, accept_prob: Array) -> Adaptation:
-        n = adapt.iteration + 1
-        warm = adapt.iteration < num_warmup
-        delta = x - adapt.mean
-        mean = adapt.mean + delta / n
-        m2 = adapt.m2 + delta * (x - mean)
-        # the scale follows the running sd once enough draws are in, shrunk towards the prior
-        # guess while few are (weight 20 pseudo-draws)
-        var = (m2 + 20 * proposal_scale**2) / (n + 20)
-        log_step = adapt.log_step + (accept_prob - target_accept) / n**0.6
-        base = math.log(2.56 / math.sqrt(max(x.size, 1)))
-        log_step = jnp.clip(log_step, base - math.log(50.0), base + math.log(5.0))
-        new = Adaptation(n, log_step.astype(adapt.log_step.dtype), mean, m2, jnp.sqrt(var))
-        # after warmup nothing moves but the counter
-        return jax.tree.map(lambda a, b: jnp.where(warm, a, b), new, adapt._replace(iteration=n))
 
     return init, step
 

@@ -13,6 +13,7 @@ from zhat.model.expose import (
 )
 from zhat.model.factor import Estimator, IntractableFactor, NotExposedError
 from zhat.model.integrate import IntegratedFactor, integrate_out
+from zhat.model.potential import PotentialOnly, as_potential, potential_sites
 from zhat.model.unnormalized import (
     Family,
     PerfectSampler,
@@ -32,13 +33,16 @@ __all__ = [
     "IntegratedFactor",
     "IntractableFactor",
     "NotExposedError",
+    "PotentialOnly",
     "PerfectSampler",
     "Transition",
     "UnnormalizedDistribution",
+    "as_potential",
     "estimate_sites",
     "expose",
     "integrate_out",
     "is_noise_site",
     "noise_sites",
+    "potential_sites",
     "unnormalized",
 ]
