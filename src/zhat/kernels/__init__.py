@@ -7,6 +7,7 @@ from zhat.kernels.mcmc import MCMC
 from zhat.kernels.noise_refresh import BlockRefresh, IndependentRefresh, RefreshInfo
 from zhat.kernels.pseudo_marginal_gibbs import PseudoMarginalGibbs, pseudo_marginal_gibbs
 from zhat.kernels.pseudo_marginal_mh import PseudoMarginalMH, PseudoMarginalMHInfo
+from zhat.kernels.random_walk import RandomWalk
 from zhat.kernels.slice import Slice, SliceInfo
 
 __all__ = [
@@ -23,6 +24,7 @@ __all__ = [
     "PseudoMarginalGibbs",
     "PseudoMarginalMH",
     "PseudoMarginalMHInfo",
+    "RandomWalk",
     "RefreshInfo",
     "Slice",
     "SliceInfo",

@@ -1,11 +1,14 @@
 """The random-walk proposal shared by the Metropolis-type baselines, with warmup adaptation.
 
 θ' = θ + h · s ⊙ ε, ε ~ N(0, I), in unconstrained space. During warmup s tracks the running sd
-of θ (adaptive Metropolis, Haario, Saksman & Tamminen 2001, Bernoulli 7(2)) and log h moves
-towards a target acceptance rate by Robbins–Monro steps, bounded; after warmup both are frozen,
-so the sampling phase is a valid Markov chain. The starting h₀ = 2.56/√d is the optimal scaling
-of pseudo-marginal random-walk proposals (Sherlock, Thiery, Roberts & Rosenthal 2015,
-Ann. Statist. 43(1)); it is also close to the classical 2.38/√d.
+of θ over the last three quarters of warmup (adaptive Metropolis, Haario, Saksman & Tamminen
+2001, Bernoulli 7(2)), and — when a target acceptance rate is given — log h moves towards it by
+bounded Robbins–Monro steps; after warmup both are frozen, so the sampling phase is a valid
+Markov chain. h₀ = 2.56/√d is the optimal scaling of pseudo-marginal random-walk proposals
+relative to the posterior sd (Sherlock, Thiery, Roberts & Rosenthal 2015, Ann. Statist. 43(1));
+it is close to the classical 2.38/√d. With noisy estimates the acceptance rate is capped by
+the noise alone (2Φ(−σ/√2) for Gaussian log-noise of sd σ, same source), so pseudo-marginal MH
+keeps h₀ and adapts only s.
 """
 
 from __future__ import annotations
@@ -30,8 +33,8 @@ class Adaptation(NamedTuple):
     scale: Array
 
 
-def check_options(proposal_scale: float, target_accept: float) -> None:
-    if not 0.0 < target_accept < 1.0:
+def check_options(proposal_scale: float, target_accept: float | None) -> None:
+    if target_accept is not None and not 0.0 < target_accept < 1.0:
         raise ValueError(f"target_accept must lie in (0, 1), got {target_accept!r}.")
     if not proposal_scale > 0:
         raise ValueError(f"proposal_scale must be positive, got {proposal_scale!r}.")
@@ -62,19 +65,25 @@ def update(
     accept_prob: Array,
     num_warmup: int,
     proposal_scale: float,
-    target_accept: float,
+    target_accept: float | None,
 ) -> Adaptation:
     """One adaptation step at the chain's new position ``x`` (no-op after warmup)."""
     n = adapt.iteration + 1
     warm = adapt.iteration < num_warmup
+    # moments of θ from the last three quarters of warmup (the first quarter is the approach)
+    start = num_warmup // 4
+    count = jnp.maximum(n - start, 1)
+    collect = adapt.iteration >= start
     delta = x - adapt.mean
-    mean = adapt.mean + delta / n
-    m2 = adapt.m2 + delta * (x - mean)
+    mean = jnp.where(collect, adapt.mean + delta / count, adapt.mean)
+    m2 = jnp.where(collect, adapt.m2 + delta * (x - mean), adapt.m2)
     # the scale follows the running sd, shrunk towards the initial guess while few draws are in
     # (weight of 20 pseudo-draws)
-    var = (m2 + 20 * proposal_scale**2) / (n + 20)
-    base = _base(x.size)
-    log_step = adapt.log_step + (accept_prob - target_accept) / n**0.6
-    log_step = jnp.clip(log_step, base - math.log(50.0), base + math.log(5.0))
+    var = (m2 + 20 * proposal_scale**2) / (jnp.where(collect, count, 0) + 20)
+    log_step = adapt.log_step
+    if target_accept is not None:
+        base = _base(x.size)
+        log_step = log_step + (accept_prob - target_accept) / n**0.6
+        log_step = jnp.clip(log_step, base - math.log(50.0), base + math.log(5.0))
     new = Adaptation(n, log_step.astype(adapt.log_step.dtype), mean, m2, jnp.sqrt(var))
     return jax.tree.map(lambda a, b: jnp.where(warm, a, b), new, adapt._replace(iteration=n))

@@ -51,7 +51,7 @@ def build_kernel(
     *,
     correlation: float = 0.0,
     proposal_scale: float = 1.0,
-    target_accept: float = 0.15,
+    target_accept: float | None = None,
 ) -> tuple[Callable, Callable]:
     """Pure ``(init, step)`` of pseudo-marginal MH over a dict of unconstrained values."""
     if not 0.0 <= correlation < 1.0:
@@ -116,7 +116,9 @@ class PseudoMarginalMH(ModelKernel):
     :param correlation: ρ of the Crank–Nicolson noise move; 0 (default) draws fresh noise,
         values near 1 (e.g. 0.99) give the correlated pseudo-marginal method.
     :param proposal_scale: initial random-walk sd per unconstrained coordinate.
-    :param target_accept: acceptance rate the warmup step-size adaptation aims for.
+    :param target_accept: acceptance rate the warmup step-size adaptation aims for; ``None``
+        (default) keeps the optimal scaling 2.56/√d of the running posterior sd (Sherlock et
+        al. 2015), since with noisy estimates the acceptance rate is capped by the noise.
     """
 
     def __init__(
@@ -125,7 +127,7 @@ class PseudoMarginalMH(ModelKernel):
         *,
         correlation: float = 0.0,
         proposal_scale: float = 1.0,
-        target_accept: float = 0.15,
+        target_accept: float | None = None,
     ) -> None:
         self._options = dict(
             correlation=correlation, proposal_scale=proposal_scale, target_accept=target_accept

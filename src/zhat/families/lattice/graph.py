@@ -52,6 +52,13 @@ class Neighbours:
     def bipartite(self) -> bool:
         return self.sides is not None
 
+    def dense_adjacency(self) -> np.ndarray:
+        """The 0/1 adjacency matrix (N, N)."""
+        a = np.zeros((self.num_sites, self.num_sites), dtype=np.float32)
+        a[self.edges[:, 0], self.edges[:, 1]] = 1.0
+        a[self.edges[:, 1], self.edges[:, 0]] = 1.0
+        return a
+
     def __repr__(self) -> str:
         kind = f"grid {self.shape} ({self.boundary})" if self.boundary else "graph"
         return f"Neighbours({kind}, {self.num_sites} sites, {self.num_edges} edges)"

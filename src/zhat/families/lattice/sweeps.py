@@ -41,8 +41,18 @@ __all__ = [
 ]
 
 
+DENSE_LIMIT = 256
+"""Up to this many sites the neighbour sum is one dense matrix product (fewest operations)."""
+
+
 def neighbour_sum(nb: Neighbours, s: Array) -> Array:
-    """Σ_{j~i} s_j for every site (flat arrays); stencils on grids, a gather on graphs."""
+    """Σ_{j~i} s_j for every site (flat arrays).
+
+    A dense adjacency product on small graphs, shifted copies (stencils) on larger grids, a
+    gather through the padded neighbour table on larger irregular graphs.
+    """
+    if nb.num_sites <= DENSE_LIMIT:
+        return jnp.asarray(nb.dense_adjacency(), s.dtype) @ s
     if nb.boundary is not None:
         rows, cols = nb.shape
         g = s.reshape(rows, cols)
