@@ -9,9 +9,10 @@ MH stick (Murray & Graham 2016, AISTATS, "Pseudo-marginal slice sampling").
 Defaults, chosen per model from its estimators when the sampler is initialised:
 
 - every estimator smooth in (θ, u): NUTS on θ, elliptical slice sampling on u;
-- otherwise (e.g. auxiliary draws from a perfect sampler, piecewise constant): slice sampling
-  on θ, and a block refresh of u (one auxiliary draw's noise at a time), which the lattice
-  benchmark (``benchmarks/lattice.py``) found the most efficient of the noise moves offered.
+- otherwise (e.g. auxiliary draws from a perfect sampler, piecewise constant): random-walk
+  Metropolis on θ (one estimator evaluation per move, where slice sampling spends several) and
+  an independence refresh of u, the combination the lattice benchmark
+  (``benchmarks/lattice.py``) found the most efficient of those offered.
 """
 
 from __future__ import annotations
