@@ -26,8 +26,8 @@ from numpyro.infer.hmc import HMC
 from numpyro.infer.mcmc import MCMCKernel
 
 from zhat.kernels.elliptical_slice import EllipticalSlice
-from zhat.kernels.noise_refresh import BlockRefresh
-from zhat.kernels.slice import Slice
+from zhat.kernels.noise_refresh import IndependentRefresh
+from zhat.kernels.random_walk import RandomWalk
 from zhat.model.expose import estimate_sites, noise_sites
 
 __all__ = ["PseudoMarginalGibbs", "pseudo_marginal_gibbs"]
@@ -85,15 +85,16 @@ class PseudoMarginalGibbs(MCMCKernel):
                 "factor, or was not wrapped with `zhat.expose(model)`."
             )
         rough = [n for n, tag in estimate_sites(model_trace).items() if not tag["estimator"].smooth]
-        theta = self._theta or (Slice(self._model) if rough else NUTS(self._model))
+        theta = self._theta or (RandomWalk(self._model) if rough else NUTS(self._model))
         noise = self._noise or (
-            BlockRefresh(self._model) if rough else EllipticalSlice(self._model)
+            IndependentRefresh(self._model) if rough else EllipticalSlice(self._model)
         )
         if rough and isinstance(theta, HMC):
             raise ValueError(
                 f"The estimators at {rough} are not smooth in the parameters, so a gradient "
                 f"kernel ({type(theta).__name__}) cannot update them. Use "
-                "`pseudo_marginal_gibbs(model, theta_kernel=zhat.kernels.Slice(model))`."
+                "`pseudo_marginal_gibbs(model, theta_kernel=zhat.kernels.RandomWalk(model))` or "
+                "`zhat.kernels.Slice(model)`."
             )
         return Gibbs([(theta, None), (noise, noise_sites)])
 
