@@ -13,6 +13,7 @@ $(STAMP): pyproject.toml
 	touch $(STAMP)
 
 demo: $(STAMP)
+	$(BIN)/python examples/beetle_plots.py
 	$(BIN)/python examples/moth_traps.py
 
 test: $(STAMP)
@@ -21,6 +22,7 @@ test: $(STAMP)
 
 bench: $(STAMP)
 	$(BIN)/python benchmarks/latent_gaussian.py
+	$(BIN)/python benchmarks/lattice.py
 
 clean:
 	rm -rf $(VENV) build src/*.egg-info .pytest_cache

@@ -18,7 +18,6 @@ from __future__ import annotations
 
 import time
 
-import arviz as az
 import jax
 import jax.numpy as jnp
 import numpy as np
@@ -84,16 +83,10 @@ def main() -> None:
     seconds = time.perf_counter() - start
 
     samples = mcmc.get_samples(group_by_chain=True)
-    posterior = {k: np.asarray(samples[k]) for k in ("a", "b", "s")}
-    table = az.summary(az.from_dict(posterior=posterior), hdi_prob=0.9, round_to=3)
-    table.insert(0, "simulated with", [TRUE[k] for k in table.index])
+    means = {k: float(np.mean(samples[k])) for k in ("a", "b", "s")}
+    noise = zhat.check.estimator_noise(jax.random.key(3), exposed, means, *data)
     print("Posterior (2 chains × 1500 draws after 800 warmup):")
-    print(table[["simulated with", "mean", "sd", "hdi_5%", "hdi_95%", "ess_bulk", "r_hat"]])
-
-    means = {k: float(v.mean()) for k, v in posterior.items()}
-    print("\nEstimator noise at the posterior mean:")
-    for report in zhat.check.estimator_noise(jax.random.key(3), exposed, means, *data):
-        print("  " + report.line())
+    print(zhat.check.posterior_summary(samples, exposed.describe(*data), noise, truth=TRUE))
     print(f"\nSampling took {seconds:.1f} s (including compilation).")
 
 

@@ -75,7 +75,8 @@ def log_estimates(
         model_trace = trace(model).get_trace(*args, **kwargs)
         return {info.site: model_trace[info.site]["fn"].log_estimate for info in layout}
 
-    return jax.vmap(one)(random.split(rng_key, num_draws))
+    # batches keep memory bounded: a perfect sampler's noise can be millions of numbers per draw
+    return jax.lax.map(jax.jit(one), random.split(rng_key, num_draws), batch_size=8)
 
 
 def _verdict(sd: float, unit: str, count: Callable[[float], int] | None) -> str:
@@ -90,8 +91,9 @@ def _verdict(sd: float, unit: str, count: Callable[[float], int] | None) -> str:
             f"WARNING: too noisy for Metropolis-type moves; chains may stick. Use about "
             f"{ratio:.1f}× as many draws{more}, or a better proposal."
         )
-    fewer = f" (about {count(ratio)} {unit})" if count else ""
-    return f"low; {ratio:.2f}× the draws{fewer} would still do and cost less."
+    if count is None or count(ratio) >= count(1.0):
+        return "low; a cheaper estimator (fewer draws or annealing steps) would still do."
+    return f"low; about {count(ratio)} {unit} instead of {count(1.0)} would still do and cost less."
 
 
 def estimator_noise(

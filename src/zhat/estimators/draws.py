@@ -49,13 +49,20 @@ class AuxiliaryDraws:
                 f"{'a' if family.perfect_sampler else 'no'} perfect sampler."
             )
 
-    def size(self, dist: UnnormalizedDistribution, data: Array) -> int:
+    def size(self, dist: UnnormalizedDistribution, data: Array) -> tuple[int, tuple[int, ...]]:
         family = dist.family
         if self.exact:
             shape = family.perfect_sampler.noise_shape(self.budget)
         else:
             shape = (self.sweeps, *family.simulators[self.sampler].noise_shape(data))
         return math.prod(shape), shape
+
+    def draw_with_key(self, dist: UnnormalizedDistribution, data: Array, key: Array, dtype):
+        """The same draw for a kernel with its own randomness (noise drawn only as needed)."""
+        if self.exact:
+            return dist.family.perfect_sampler.draw(dist.params, key, self.budget)
+        size, shape = self.size(dist, data)
+        return self.draw(dist, data, jax.random.normal(key, (size,), dtype), shape)
 
     def draw(self, dist: UnnormalizedDistribution, data: Array, noise: Array, shape):
         family = dist.family

@@ -160,9 +160,8 @@ class Exchange(ModelKernel):
             here, there = target.families(state.z), target.families(proposal)
             log_aux, exact = jnp.zeros((), flat.dtype), jnp.array(True)
             for i, (name, (dist_new, data)) in enumerate(sorted(there.items())):
-                size, shape = draws.size(dist_new, data)
-                noise = random.normal(random.fold_in(key_aux, i), (size,), flat.dtype)
-                x, ok = draws.draw(dist_new, data, noise, shape)
+                key_i = random.fold_in(key_aux, i)
+                x, ok = draws.draw_with_key(dist_new, data, key_i, flat.dtype)
                 log_aux = log_aux + here[name][0].log_potential(x) - dist_new.log_potential(x)
                 exact = exact & ok
             log_ratio = new_logdensity - state.logdensity + log_aux

@@ -55,6 +55,8 @@ class PerfectSampler(NamedTuple):
 
     - **draw** - ``(params, noise) -> (x, exact)``; ``exact`` is False when the budget ran out
       (the draw is then not exact) or the parameters are outside what the sampler handles.
+      Kernels with randomness of their own may call ``draw(params, key, budget)`` with a PRNG
+      key, so that only the noise actually used is drawn.
     - **noise_shape** - ``(budget) -> shape`` of the noise one draw uses for a budget (e.g.
       the largest number of sweeps).
     - **conditions** - one line on when it applies (e.g. 'coupling ≥ 0 or a bipartite graph').

@@ -124,9 +124,9 @@ def _spin_transitions(nb: Neighbours, to_spin, from_spin, spin_params):
 
 
 def _spin_perfect(nb: Neighbours, from_spin, spin_params) -> PerfectSampler:
-    def draw(params, noise):
+    def draw(params, noise, budget=None):
         h, j = spin_params(params)
-        s, exact, _ = coupling_from_the_past(nb, h, j, noise)
+        s, exact, _ = coupling_from_the_past(nb, h, j, noise, max_sweeps=budget)
         return from_spin(s), exact
 
     return PerfectSampler(

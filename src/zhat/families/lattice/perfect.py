@@ -9,7 +9,11 @@ Otherwise T doubles, reusing the uniforms already assigned to times −1, …, �
 t drives the sweep at time −(t + 1)).
 
 Here the noise is an explicit array of standard normals, shape (max_sweeps, N): the draw is a
-deterministic function of it. Doubling stops at the budget ``max_sweeps``; the result then is
+deterministic function of it. A kernel with randomness of its own (the exchange algorithm) may
+pass a PRNG key instead, with ``max_sweeps``: row t is then drawn from ``fold_in(key, t)`` only
+when the doubling reaches it, so the unused part of the budget costs nothing.
+
+Doubling stops at the budget ``max_sweeps``; the result then is
 the upper chain's state, *not* an exact draw, and the returned flag says so.
 
 Antiferromagnetic couplings (J < 0) on a bipartite graph use the sublattice flip s_i → σ_i s_i
@@ -43,17 +47,33 @@ def coupling_from_the_past(
     coupling: Array,
     noise: Array,
     first_sweeps: int = 8,
+    max_sweeps: int | None = None,
 ) -> tuple[Array, Array, Array]:
-    """Exact draw of spins given noise of shape (max_sweeps, N).
+    """Exact draw of spins given noise of shape (max_sweeps, N), or a PRNG key and max_sweeps.
 
     :return: ``(spins, coalesced, sweeps)`` — the draw (float ±1), whether it is exact, and the
         number of time steps T of the last attempt.
     """
-    max_sweeps, n = noise.shape
-    if n != nb.num_sites:
-        raise ValueError(f"Noise has {n} columns for a graph of {nb.num_sites} sites.")
+    n = nb.num_sites
+    if jax.dtypes.issubdtype(noise.dtype, jax.dtypes.prng_key):
+        if max_sweeps is None:
+            raise ValueError("coupling_from_the_past with a key needs max_sweeps.")
+        key, dtype = noise, jnp.result_type(float)
+
+        def uniform_row(t: Array) -> Array:
+            return ndtr(jax.random.normal(jax.random.fold_in(key, t), (n,), dtype))
+
+    else:
+        max_sweeps = noise.shape[0]
+        if noise.shape[1:] != (n,):
+            raise ValueError(f"Noise has shape {noise.shape} for a graph of {n} sites.")
+        dtype = noise.dtype
+        uniforms = ndtr(noise)
+
+        def uniform_row(t: Array) -> Array:
+            return uniforms[t]
+
     levels = max(1, int(max_sweeps // first_sweeps).bit_length())
-    dtype = noise.dtype
     h = jnp.broadcast_to(jnp.asarray(h, dtype), (n,))
     coupling = jnp.asarray(coupling, dtype)
     if nb.bipartite:
@@ -63,14 +83,13 @@ def coupling_from_the_past(
         flip = jnp.ones((n,), dtype)
         possible = coupling >= 0
     h_eff, j_eff = h * flip, jnp.abs(coupling)
-    uniforms = ndtr(noise)
 
     def attempt(level: Array) -> tuple[Array, Array, Array]:
         """Both bounding chains (as one batch) from time −t to 0."""
         t = jnp.minimum(first_sweeps * 2**level, max_sweeps)
 
         def body(k: Array, pair: Array) -> Array:
-            u = uniforms[t - 1 - k]
+            u = uniform_row(t - 1 - k)
             return jax.vmap(lambda s: heat_bath_sweep(nb, s, h_eff, j_eff, u))(pair)
 
         start = jnp.stack([jnp.ones((n,), dtype), -jnp.ones((n,), dtype)])
