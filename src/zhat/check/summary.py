@@ -16,6 +16,7 @@ import arviz as az
 import numpy as np
 
 from zhat.check.noise import NoiseReport
+from zhat.kernels.exchange import Exchange
 from zhat.model.expose import FactorInfo
 
 __all__ = ["posterior_summary"]
@@ -29,12 +30,15 @@ def posterior_summary(
     noise: Iterable[NoiseReport] = (),
     *,
     truth: Mapping[str, Any] | None = None,
+    sampler: Any = None,
 ) -> str:
     """Text summary of chains ``samples`` (name → array (chains, draws, ...)).
 
     :param factors: what ``exposed.describe(*args)`` returned (estimators and their flags).
     :param noise: reports from :func:`zhat.check.estimator_noise`.
     :param truth: values used to simulate invented data, shown beside the estimates.
+    :param sampler: the kernel that produced the chains; an approximate one (double
+        Metropolis–Hastings) is flagged like an approximate estimator.
     """
     posterior = {k: np.asarray(v) for k, v in samples.items() if not k.endswith("_log_estimate")}
     for name, value in posterior.items():
@@ -69,6 +73,14 @@ def posterior_summary(
                     f"the estimator at '{info.site}' is APPROXIMATE: this posterior is not the "
                     "exact one; compare with an exact estimator or a longer simulator run."
                 )
+    if isinstance(sampler, Exchange):
+        flag = "exact auxiliary draws" if sampler.exact else "APPROXIMATE auxiliary draws"
+        lines.append(f"\nSampler: {type(sampler).__name__} — {flag}")
+        if not sampler.exact:
+            warnings.append(
+                f"{type(sampler).__name__} uses simulator runs instead of exact draws: this "
+                "posterior is APPROXIMATE."
+            )
     for report in noise:
         lines.append("  " + report.line())
         if report.verdict.startswith("WARNING") or not np.isfinite(report.sd):
