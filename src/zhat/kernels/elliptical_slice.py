@@ -36,11 +36,14 @@ class EllipticalSliceInfo(NamedTuple):
     subiter: Array
 
 
-def build_kernel(sites: Sequence[str], max_subiter: int | None = None) -> tuple[Callable, Callable]:
+def build_kernel(sites: Sequence[str]) -> tuple[Callable, Callable]:
     """Pure ``(init, step)`` for one elliptical slice move per site of ``sites``, in order.
 
     ``logdensity_fn`` passed to them is the log *likelihood* of the block: the log joint with
-    the N(0, I) prior of the sites removed.
+    the N(0, I) prior of the sites removed. The shrinking bracket always ends at the current
+    point, so the loop terminates when the likelihood is continuous in the noise (Murray, Adams
+    & MacKay 2010); positions keep the site's dtype (the likelihood is evaluated at the value
+    as stored).
     """
     sites = tuple(sites)
 
@@ -53,15 +56,18 @@ def build_kernel(sites: Sequence[str], max_subiter: int | None = None) -> tuple[
         counts = []
         for i, site in enumerate(sites):
             value = z[site]
-            kernel = ess.build_kernel(jnp.ones((value.size,), value.dtype), jnp.zeros(()))
+            kernel = ess.build_kernel(
+                jnp.ones((value.size,), value.dtype), jnp.zeros((), value.dtype)
+            )
 
-            def site_loglik(v: Array, site: str = site) -> Array:
-                return loglik_fn({**z, site: v})
+            def site_loglik(v: Array, site: str = site, dtype=value.dtype) -> Array:
+                return loglik_fn({**z, site: v.astype(dtype)}).astype(state.logdensity.dtype)
 
             new, info = kernel(
                 random.fold_in(rng_key, i), ess.EllipSliceState(value, loglik), site_loglik
             )
-            z[site], loglik = new.position, new.logdensity
+            z[site] = new.position.astype(value.dtype)
+            loglik = new.logdensity.astype(state.logdensity.dtype)
             counts.append(jnp.asarray(info.subiter, jnp.int32))
         return AlgorithmState(z, loglik, None), EllipticalSliceInfo(jnp.stack(counts))
 

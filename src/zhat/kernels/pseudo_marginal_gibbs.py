@@ -21,9 +21,10 @@ from collections.abc import Callable
 from typing import Any
 
 from numpyro.infer import NUTS
-from numpyro.infer.gibbs import Gibbs, prototype_trace
+from numpyro.infer.gibbs import Gibbs, prototype_trace, with_conditioning
 from numpyro.infer.hmc import HMC
 from numpyro.infer.mcmc import MCMCKernel
+from numpyro.util import is_prng_key
 
 from zhat.kernels.elliptical_slice import EllipticalSlice
 from zhat.kernels.noise_refresh import IndependentRefresh
@@ -99,6 +100,12 @@ class PseudoMarginalGibbs(MCMCKernel):
         return Gibbs([(theta, None), (noise, noise_sites)])
 
     def init(self, rng_key, num_warmup, init_params, model_args, model_kwargs):
+        if not is_prng_key(rng_key):
+            raise ValueError(
+                "pseudo_marginal_gibbs runs one chain per call (it is a NumPyro Gibbs kernel): "
+                'use chain_method="parallel" or "sequential" for several chains, not '
+                '"vectorized".'
+            )
         model_trace = prototype_trace(self._model, rng_key, model_args, model_kwargs or {})
         self._gibbs = self._choose(model_trace)
         return self._gibbs.init(rng_key, num_warmup, init_params, model_args, model_kwargs)
@@ -107,11 +114,29 @@ class PseudoMarginalGibbs(MCMCKernel):
         return self.gibbs.sample(state, model_args, model_kwargs)
 
     def refresh(self, state, model_args, model_kwargs):
-        return self.gibbs.refresh(state, model_args, model_kwargs)
+        """Recompute every block's cached values against its siblings' current values.
+
+        (NumPyro's ``Gibbs.refresh`` is the identity because its ``sample`` refreshes blocks
+        whose siblings moved; a composite used as a block, or given new model arguments,
+        needs every block refreshed.)
+        """
+        blocks = [kernel for kernel, _ in self.gibbs.blocks]
+        own = []
+        for kernel, block_state in zip(blocks, state.block_states, strict=True):
+            z = getattr(block_state, kernel.sample_field)
+            own.append(kernel.get_constrain_fn(model_args, model_kwargs)(z))
+        fresh = []
+        for i, (kernel, block_state) in enumerate(zip(blocks, state.block_states, strict=True)):
+            siblings = {k: v for j, values in enumerate(own) if j != i for k, v in values.items()}
+            kwargs = with_conditioning(model_kwargs, siblings)
+            fresh.append(kernel.refresh(block_state, model_args, kwargs))
+        return state._replace(block_states=tuple(fresh))
 
     def wrap_model(self, wrapper: Callable) -> PseudoMarginalGibbs:
-        wrap = lambda k: None if k is None else k.wrap_model(wrapper)  # noqa: E731
-        return PseudoMarginalGibbs(wrapper(self._model), wrap(self._theta), wrap(self._noise))
+        wrapped = wrapper(self._model)
+        # every block must hold the very same wrapped model object (Gibbs compares identity)
+        wrap = lambda k: None if k is None else k.wrap_model(lambda _: wrapped)  # noqa: E731
+        return PseudoMarginalGibbs(wrapped, wrap(self._theta), wrap(self._noise))
 
     def get_constrain_fn(self, model_args, model_kwargs):
         return self.gibbs.get_constrain_fn(model_args, model_kwargs)
