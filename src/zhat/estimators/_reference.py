@@ -22,6 +22,10 @@ Array = jax.Array
 
 __all__ = ["maximum_pseudo_likelihood", "reference_params"]
 
+UNBOUNDED = 15.0
+"""A free parameter beyond this size at the 'maximum' means the maximum is at infinity: on
+the natural scale of these families, e^15 odds are certainty (common practice)."""
+
 
 def maximum_pseudo_likelihood(
     dist: UnnormalizedDistribution,
@@ -72,10 +76,13 @@ def maximum_pseudo_likelihood(
             v, f_old, f, g = v - t * step, f, f_new, g_new
             if abs(float(f_old - f)) < tol * (1 + abs(float(f))):
                 break
-        if not bool(jnp.all(jnp.isfinite(v))):
+        if not bool(jnp.all(jnp.isfinite(v))) or float(jnp.max(jnp.abs(v))) > UNBOUNDED:
             raise ValueError(
-                f"Maximum pseudo-likelihood for '{family.name}' did not converge (the data may "
-                "be all one label). Give the estimator an explicit `reference={...}` point."
+                f"The pseudo-likelihood of '{family.name}' has no finite maximum for these data "
+                f"(the Newton steps ran off to {float(jnp.max(jnp.abs(v))):.3g}): the data may "
+                "be separated (e.g. every site agrees with its neighbours) or a parameter is "
+                "not identified (e.g. one field per site). Give the estimator an explicit "
+                "`reference={...}` point."
             )
         return {**dist.params, **unravel(v)}
 

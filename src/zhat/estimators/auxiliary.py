@@ -181,7 +181,7 @@ def _auxiliary(
                     prev = _interpolate(theta, ref, names, (t - 1) / temperatures)
                     here = _interpolate(theta, ref, names, t / temperatures)
                     log_w = log_w + log_g(here, x) - log_g(prev, x)
-                    x = lax.scan(lambda x, zz: (step(here, x, zz), None), x, z)[0]
+                    x = lax.scan(lambda x, zz: (step(here, x, zz).astype(x.dtype), None), x, z)[0]
                     return (x, log_w), None
 
                 ts = jnp.arange(1, temperatures + 1, dtype=u.dtype)

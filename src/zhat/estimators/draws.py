@@ -71,6 +71,6 @@ class AuxiliaryDraws:
             x, ok = family.perfect_sampler.draw(dist.params, noise)
             return x, ok
         step = family.simulators[self.sampler].step
-        x0 = jnp.asarray(data).reshape(-1).astype(noise.dtype)
-        x = lax.scan(lambda x, z: (step(dist.params, x, z), None), x0, noise)[0]
+        x0 = jnp.asarray(data).reshape(-1)
+        x = lax.scan(lambda x, z: (step(dist.params, x, z).astype(x0.dtype), None), x0, noise)[0]
         return x, jnp.array(True)

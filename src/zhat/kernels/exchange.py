@@ -121,17 +121,32 @@ class Exchange(ModelKernel):
         }
         if not conditioning:
             return
+        if any(isinstance(v, jax.core.Tracer) for v in jax.tree.leaves((conditioning, state.z))):
+            raise ValueError(
+                f"{type(self).__name__} as a block of Gibbs checks at init that it owns every "
+                "site entering a family, which needs concrete values: run the chains with "
+                'chain_method="sequential" (not "parallel").'
+            )
         z = jax.tree.map(lambda v: v[0], state.z) if state.logdensity.ndim else state.z
 
-        def family_terms(values: dict[str, Array]) -> Array:
+        def family_params(values: dict[str, Array]) -> Array:
+            """A random linear combination of every family parameter (dependence check)."""
             kwargs = {
                 **model_kwargs,
                 GIBBS_SITES_KWARG: {**model_kwargs[GIBBS_SITES_KWARG], **values},
             }
             fams = self._target(model_args, kwargs).families(z)
-            return sum(dist.log_potential(data) for dist, data in fams.values())
+            leaves = [
+                jnp.ravel(p)
+                for dist, _ in fams.values()
+                for p in jax.tree.leaves(dist.params)
+                if jnp.issubdtype(p.dtype, jnp.floating)
+            ]
+            flat = jnp.concatenate(leaves) if leaves else jnp.zeros((0,))
+            weights = random.normal(random.key(7), flat.shape, flat.dtype)
+            return jnp.sum(weights * flat)
 
-        grads = jax.grad(family_terms)(conditioning)
+        grads = jax.grad(family_params)(conditioning)
         moving = sorted(k for k, g in grads.items() if bool(jnp.any(g != 0)))
         if moving:
             raise ValueError(

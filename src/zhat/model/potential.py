@@ -31,9 +31,9 @@ class PotentialOnly(Distribution):
     support = constraints.real
     pytree_data_fields = ("dist",)
 
-    def __init__(self, dist: UnnormalizedDistribution) -> None:
+    def __init__(self, dist: UnnormalizedDistribution, event_shape: tuple[int, ...]) -> None:
         self.dist = dist
-        super().__init__(batch_shape=(), event_shape=dist.event_shape)
+        super().__init__(batch_shape=(), event_shape=tuple(event_shape))
 
     def log_prob(self, value: ArrayLike) -> Array:
         return self.dist.log_potential(value)
@@ -57,7 +57,7 @@ class as_potential(Messenger):
                     f"The {msg['fn'].kind} at site '{msg['name']}' is not observed; pass `obs=`."
                 )
             msg["fn"].validate_data(msg["value"], msg["name"])
-            msg["fn"] = PotentialOnly(msg["fn"])
+            msg["fn"] = PotentialOnly(msg["fn"], jnp.shape(msg["value"]))
 
 
 def potential_sites(model_trace: dict[str, dict[str, Any]]) -> dict[str, tuple[Any, Array]]:

@@ -102,7 +102,9 @@ class UnnormalizedDistribution(IntractableFactor):
         self, family: Family, params: dict[str, ArrayLike], event_shape: tuple[int, ...] = ()
     ) -> None:
         self.family = family
-        self.params = {k: jnp.asarray(v) for k, v in params.items()}
+        # fixed inputs given as numbers stay concrete under jit (the reference fit needs them)
+        with jax.ensure_compile_time_eval():
+            self.params = {k: jnp.asarray(v) for k, v in params.items()}
         default = family.default_estimator(family) if family.default_estimator else None
         super().__init__(batch_shape=(), event_shape=event_shape, estimator=default)
 

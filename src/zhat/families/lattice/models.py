@@ -189,7 +189,7 @@ def ising(graph: Neighbours, field: ArrayLike = 0.0, coupling: ArrayLike = 0.0):
 
 @functools.lru_cache(maxsize=64)
 def _autologistic_family(nb: Neighbours, centred: bool) -> Family:
-    degree = jnp.asarray(nb.degree)
+    degree = np.asarray(nb.degree, dtype=float)  # numpy: the family is cached across traces
 
     def site_terms(coupling, covariates, coefficients):
         eta = covariates @ coefficients
@@ -250,9 +250,12 @@ def autologistic(
     _check_graph(graph)
     n = graph.num_sites
     dtype = jnp.result_type(float)
-    covariates = jnp.ones((n, 1), dtype) if covariates is None else jnp.asarray(covariates, dtype)
-    if covariates.ndim == 1:
-        covariates = covariates[:, None]
+    with jax.ensure_compile_time_eval():  # fixed inputs stay concrete under jit
+        covariates = (
+            jnp.ones((n, 1), dtype) if covariates is None else jnp.asarray(covariates, dtype)
+        )
+        if covariates.ndim == 1:
+            covariates = covariates[:, None]
     if covariates.shape[0] != n or covariates.ndim != 2:
         raise ValueError(
             f"covariates must have shape ({n}, p) — one row per site; got {covariates.shape}."

@@ -23,6 +23,8 @@ is not bipartite a negative coupling cannot be sampled this way: the flag is the
 
 from __future__ import annotations
 
+import math
+
 import jax
 import jax.numpy as jnp
 from jax import lax
@@ -73,7 +75,8 @@ def coupling_from_the_past(
         def uniform_row(t: Array) -> Array:
             return uniforms[t]
 
-    levels = max(1, int(max_sweeps // first_sweeps).bit_length())
+    # attempts at first_sweeps · 2^level, the last one clipped to the whole budget
+    levels = 1 + max(0, math.ceil(math.log2(max_sweeps / first_sweeps)))
     h = jnp.broadcast_to(jnp.asarray(h, dtype), (n,))
     coupling = jnp.asarray(coupling, dtype)
     if nb.bipartite:

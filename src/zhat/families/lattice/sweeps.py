@@ -112,9 +112,21 @@ def _components(nb: Neighbours, bonded: Array) -> Array:
 
 
 def swendsen_wang(nb: Neighbours, s: Array, h: Array, coupling: Array, noise: Array) -> Array:
-    """One Swendsen–Wang update (J ≥ 0); ``noise`` is standard normal of shape (E + N,)."""
+    """One Swendsen–Wang update; ``noise`` is standard normal of shape (E + N,).
+
+    Cluster moves need J ≥ 0; for J < 0 the step is a heat-bath sweep with the site part of the
+    noise instead, so the transition always leaves the model invariant.
+    """
     e = nb.num_edges
     u_bond, u_spin = ndtr(noise[:e]), ndtr(noise[e:])
+    return lax.cond(
+        coupling >= 0,
+        lambda: _swendsen_wang(nb, s, h, coupling, u_bond, u_spin),
+        lambda: heat_bath_sweep(nb, s, h, coupling, u_spin).astype(s.dtype),
+    )
+
+
+def _swendsen_wang(nb, s, h, coupling, u_bond, u_spin):
     edges = jnp.asarray(nb.edges)
     agree = s[edges[:, 0]] == s[edges[:, 1]]
     bonded = agree & (u_bond < -jnp.expm1(-2.0 * coupling))
@@ -165,9 +177,20 @@ def potts_gibbs_sweeps(nb: Neighbours, x: Array, field: Array, coupling: Array, 
 def potts_swendsen_wang(
     nb: Neighbours, x: Array, field: Array, coupling: Array, noise: Array
 ) -> Array:
-    """One Swendsen–Wang update of a Potts model (J ≥ 0); noise standard normal (E + N,)."""
+    """One Swendsen–Wang update of a Potts model; noise standard normal (E + N,).
+
+    For J < 0 the step is a heat-bath sweep with the site part of the noise instead.
+    """
     e = nb.num_edges
     u_bond, u_label = ndtr(noise[:e]), ndtr(noise[e:])
+    return lax.cond(
+        coupling >= 0,
+        lambda: _potts_swendsen_wang(nb, x, field, coupling, u_bond, u_label),
+        lambda: potts_heat_bath_sweep(nb, x, field, coupling, u_label).astype(x.dtype),
+    )
+
+
+def _potts_swendsen_wang(nb, x, field, coupling, u_bond, u_label):
     edges = jnp.asarray(nb.edges)
     agree = x[edges[:, 0]] == x[edges[:, 1]]
     bonded = agree & (u_bond < -jnp.expm1(-coupling))
