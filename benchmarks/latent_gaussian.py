@@ -63,11 +63,9 @@ import argparse
 import json
 import math
 import os
-import time
 from collections.abc import Callable
-from typing import Any, NamedTuple
+from typing import Any
 
-import arviz as az
 import jax
 import jax.numpy as jnp
 import numpy as np
@@ -78,6 +76,15 @@ from numpyro.handlers import seed, substitute, trace
 from numpyro.infer import MCMC, NUTS
 
 import zhat
+from _common import (
+    Budget,
+    CompileClock,
+    Run,
+    chains_in_turn,
+    load_average,
+    posterior_summary,
+    run_timed,
+)
 
 Array = jax.Array
 
@@ -94,19 +101,6 @@ RUN_SEED = 20240
 # Goals of the project for this problem.
 GOAL_JOINT_OVER_ORACLE = 1.0
 GOAL_JOINT_OVER_PMMH = 30.0
-
-COMPILE_EVENTS = (
-    "/jax/core/compile/jaxpr_trace_duration",
-    "/jax/core/compile/jaxpr_to_mlir_module_duration",
-    "/jax/core/compile/backend_compile_duration",
-)
-
-
-class Budget(NamedTuple):
-    chains: int
-    warmup: int
-    draws: int
-
 
 BUDGETS = {
     "full": {
@@ -178,76 +172,6 @@ def log_estimate_spread(
     return float(jnp.std(values)), tuple(info.noise_shape)
 
 
-# --- timing ------------------------------------------------------------------------------------
-class CompileClock:
-    """Collects the time spans JAX reports for tracing, lowering and compiling."""
-
-    def __init__(self) -> None:
-        self.spans: list[tuple[float, float]] = []
-
-    def record(self, event: str, start: float, end: float, **_: Any) -> None:
-        if event in COMPILE_EVENTS:
-            self.spans.append((start, end))
-
-    def seconds_between(self, start: float, end: float) -> float:
-        """Length of the union of the recorded spans (they nest) within [start, end]."""
-        clipped = sorted((max(a, start), min(b, end)) for a, b in self.spans)
-        total, covered_to = 0.0, start
-        for a, b in clipped:
-            a = max(a, covered_to)
-            if b > a:
-                total += b - a
-                covered_to = b
-        return total
-
-
-def chains_in_turn(chain_fn: Callable) -> Callable:
-    """A ``chain_method`` for NumPyro's MCMC: chains one after another, each waited for.
-
-    Like ``"sequential"``, but no chain's execution can overlap the compilation of the next,
-    so the compile spans subtracted from a phase's wall time contain no sampling.
-    """
-
-    def run_all(per_chain: Any) -> Any:
-        num = jax.tree.leaves(per_chain)[0].shape[0]
-        outs = [
-            jax.block_until_ready(chain_fn(jax.tree.map(lambda a, i=i: a[i], per_chain)))
-            for i in range(num)
-        ]
-        return jax.tree.map(lambda *xs: jnp.stack(xs), *outs)
-
-    return run_all
-
-
-class Run(NamedTuple):
-    mu: np.ndarray  # (chains, draws)
-    extra: dict[str, np.ndarray]
-    warmup_seconds: float
-    sampling_wall_seconds: float
-    sampling_compile_seconds: float
-
-
-def run_timed(
-    mcmc: MCMC, key: Array, y: Array, clock: CompileClock, extra_fields: tuple[str, ...] = ()
-) -> Run:
-    key_warmup, key_sample = random.split(key)
-    start = time.time()
-    mcmc.warmup(key_warmup, y)
-    jax.block_until_ready(mcmc.post_warmup_state)
-    middle = time.time()
-    mcmc.run(key_sample, y, extra_fields=extra_fields)
-    samples = jax.block_until_ready(mcmc.get_samples(group_by_chain=True))
-    extra = jax.block_until_ready(mcmc.get_extra_fields(group_by_chain=True))
-    end = time.time()
-    return Run(
-        np.asarray(samples["mu"], np.float64),
-        {k: np.asarray(v) for k, v in extra.items()},
-        middle - start,
-        end - middle,
-        clock.seconds_between(middle, end),
-    )
-
-
 # --- the samplers ------------------------------------------------------------------------------
 def build_samplers(exposed: Callable, budgets: dict[str, Budget]) -> dict[str, tuple]:
     """name -> (MCMC object, extra fields to collect)."""
@@ -281,16 +205,14 @@ def build_samplers(exposed: Callable, budgets: dict[str, Budget]) -> dict[str, t
 
 
 def summarize(run: Run, exact_mean: float, exact_sd: float) -> dict[str, Any]:
-    draws = {"mu": run.mu}
-    ess = float(az.ess(draws, method="bulk")["mu"])
-    mcse_mean = float(az.mcse(draws, method="mean")["mu"])
-    mcse_sd = float(az.mcse(draws, method="sd")["mu"])
-    mean, sd = float(run.mu.mean()), float(run.mu.std())
+    stats = posterior_summary(run.draws, "mu")
+    ess, mean, sd = stats["ess_bulk"], stats["mean"], stats["sd"]
+    mcse_mean, mcse_sd = stats["mcse_mean"], stats["mcse_sd"]
     seconds = run.sampling_wall_seconds - run.sampling_compile_seconds
     out = {
-        "chains": int(run.mu.shape[0]),
-        "draws_per_chain": int(run.mu.shape[1]),
-        "draws": int(run.mu.size),
+        "chains": int(run.draws.shape[0]),
+        "draws_per_chain": int(run.draws.shape[1]),
+        "draws": int(run.draws.size),
         "ess_bulk": ess,
         "sampling_seconds": seconds,
         "sampling_wall_seconds": run.sampling_wall_seconds,
@@ -311,14 +233,6 @@ def summarize(run: Run, exact_mean: float, exact_sd: float) -> dict[str, Any]:
         out["acceptance_rate"] = float(run.extra["info.accepted"].mean())
         out["step_size"] = float(run.extra["info.step_size"].mean())
     return out
-
-
-def load_average() -> tuple[float, ...]:
-    """The system load averages (1, 5, 15 min), or () where the platform has none."""
-    try:
-        return tuple(round(x, 2) for x in os.getloadavg())
-    except OSError:
-        return ()
 
 
 # --- report ------------------------------------------------------------------------------------
@@ -406,7 +320,7 @@ def main(argv: list[str] | None = None) -> None:
         samplers = build_samplers(exposed, budgets)
         for i, (name, (mcmc, fields)) in enumerate(samplers.items()):
             print(f"running {LABELS[name]} ...", flush=True)
-            run = run_timed(mcmc, random.fold_in(key_runs, i), y, clock, fields)
+            run = run_timed(mcmc, random.fold_in(key_runs, i), (y,), clock, "mu", fields)
             results[name] = summarize(run, exact_mean, exact_sd)
     finally:
         jax.monitoring.unregister_event_time_span_listener(clock.record)
