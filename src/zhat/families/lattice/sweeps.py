@@ -126,11 +126,15 @@ def swendsen_wang(nb: Neighbours, s: Array, h: Array, coupling: Array, noise: Ar
     )
 
 
-def _swendsen_wang(nb, s, h, coupling, u_bond, u_spin):
+def _clusters(nb: Neighbours, labels: Array, u_bond: Array, bond_prob: Array) -> Array:
+    """Cluster root of each site: edges whose ends agree are bonded with ``bond_prob``."""
     edges = jnp.asarray(nb.edges)
-    agree = s[edges[:, 0]] == s[edges[:, 1]]
-    bonded = agree & (u_bond < -jnp.expm1(-2.0 * coupling))
-    root = _components(nb, bonded)
+    agree = labels[edges[:, 0]] == labels[edges[:, 1]]
+    return _components(nb, agree & (u_bond < bond_prob))
+
+
+def _swendsen_wang(nb, s, h, coupling, u_bond, u_spin):
+    root = _clusters(nb, s, u_bond, -jnp.expm1(-2.0 * coupling))
     cluster_field = jnp.zeros_like(h).at[root].add(h)
     new_spin = jnp.where(u_spin < jax.nn.sigmoid(2.0 * cluster_field), 1.0, -1.0)
     return new_spin[root].astype(s.dtype)
@@ -191,9 +195,6 @@ def potts_swendsen_wang(
 
 
 def _potts_swendsen_wang(nb, x, field, coupling, u_bond, u_label):
-    edges = jnp.asarray(nb.edges)
-    agree = x[edges[:, 0]] == x[edges[:, 1]]
-    bonded = agree & (u_bond < -jnp.expm1(-coupling))
-    root = _components(nb, bonded)
+    root = _clusters(nb, x, u_bond, -jnp.expm1(-coupling))
     cluster_field = jnp.zeros_like(field).at[root].add(field)
     return _categorical(cluster_field, u_label)[root].astype(x.dtype)
