@@ -282,6 +282,27 @@ def test_mcmc_traces_independently_of_the_number_of_samples(key):
     assert counts[0] == counts[1], counts
 
 
+@pytest.mark.parametrize("name", ["slice", "pseudo-marginal MH", "gibbs slice + elliptical slice"])
+def test_run_after_warmup_continues_the_warmed_up_chain(key, name):
+    """``warmup()`` then ``run()`` (NumPyro's documented way to continue a chain, and what
+    saving and resuming relies on) gives the draws of one ``run`` with warmup and sampling."""
+    case = CASES[name]
+    y = data()
+    exposed = zhat.expose(case.base_model, importance_sampling(NUM_DRAWS))
+    init = initial_values(case, random.key(3))
+
+    def driver():
+        return zhat.MCMC(case.build(exposed), num_warmup=8, num_samples=6, progress_bar=False)
+
+    whole = driver()
+    whole.run(key, y, init_params=init)
+    split = driver()
+    split.warmup(key, y, init_params=init)
+    split.run(split.post_warmup_state.rng_key, y)
+    for site, draws in whole.get_samples().items():
+        np.testing.assert_allclose(split.get_samples()[site], draws, rtol=1e-12)
+
+
 # --- the noise ------------------------------------------------------------------------------
 def closed_form_log_estimate(y: np.ndarray, mu: np.ndarray, noise: np.ndarray) -> np.ndarray:
     """log f̂ of importance sampling with the latent prior as proposal: the weights are the

@@ -105,6 +105,12 @@ class ModelKernel(MCMCKernel):
         return self._model
 
     @property
+    def _sample_fn(self) -> Callable | None:
+        # NumPyro's MCMC re-initialises a sampler whose `_sample_fn` is None even when given a
+        # `post_warmup_state`; exposing the step function keeps warmup -> run continuous.
+        return self._step_fn
+
+    @property
     def default_fields(self) -> tuple[str, ...]:
         return ("z",)
 

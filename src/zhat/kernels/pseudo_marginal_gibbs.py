@@ -81,6 +81,11 @@ class PseudoMarginalGibbs(MCMCKernel):
     def default_fields(self) -> tuple[str, ...]:
         return ("z",)
 
+    @property
+    def _sample_fn(self) -> Callable | None:
+        # read by NumPyro's MCMC to decide whether a `post_warmup_state` can be continued
+        return None if self._gibbs is None else self._gibbs._sample_fn
+
     def _choose(self, model_trace: dict[str, Any]) -> Gibbs:
         if not noise_sites(model_trace):
             raise ValueError(
