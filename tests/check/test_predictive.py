@@ -188,6 +188,14 @@ def test_bad_input_gets_clear_errors(key):
 
     with pytest.raises(ValueError, match="no observed site with a zhat unnormalized family"):
         zhat.check.posterior_predictive(key, plain, fixed_draws(mu=0.0), y)
+    with pytest.raises(ValueError, match="must return one number"):
+        zhat.check.posterior_predictive(
+            key,
+            ising_model,
+            fixed_draws(coupling=0.1, field=0.0),
+            y,
+            statistics={"rows": lambda x: x.sum(1)},
+        )
 
 
 def test_exposed_model_and_inference_data_are_accepted(key):
@@ -195,7 +203,10 @@ def test_exposed_model_and_inference_data_are_accepted(key):
     samples = {"coupling": np.linspace(0.1, 0.3, 20).reshape(2, 10), "field": np.zeros((2, 10))}
     idata = zhat.check.to_inference_data(samples)
     exposed = zhat.expose(ising_model)
-    a = zhat.check.posterior_predictive(key, exposed, idata, y, num_replicates=8)
+    corner = {"top-left corner": lambda x: x[0, 0]}  # an extra statistic of the caller's
+    a = zhat.check.posterior_predictive(key, exposed, idata, y, num_replicates=8, statistics=corner)
     b = zhat.check.posterior_predictive(key, ising_model, samples, y, num_replicates=8)
-    np.testing.assert_array_equal(a.replicates, b.replicates)
+    np.testing.assert_array_equal(a.replicates[:, :-1], b.replicates)
+    assert a.names[-1] == "y: top-left corner" and a.observed[-1] == 1.0
+    assert set(np.unique(a.replicates[:, -1])) <= {-1.0, 1.0}
     assert a.replicates.shape == (8, len(a.names)) and a.num_draws == 20

@@ -100,23 +100,25 @@ def _grid_pairs(graph: Neighbours, d: int) -> np.ndarray:
     return out[out[:, 0] != out[:, 1]]
 
 
-def _shortest_paths(graph: Neighbours) -> np.ndarray:
-    """All shortest-path distances by breadth-first search from every site (−1: unreachable)."""
+def _hops(graph: Neighbours, max_distance: int) -> np.ndarray:
+    """Shortest-path distances up to ``max_distance`` from every site at once (−1 beyond).
+
+    Breadth-first search level by level for all sources together: the next frontier of each
+    source is every not yet reached site with a neighbour in the current frontier (a gather
+    through the padded neighbour table), so the cost is ``max_distance`` passes over N × N × degree.
+    """
     n = graph.num_sites
-    table, degree = np.asarray(graph.table), np.asarray(graph.degree)
-    dist = np.full((n, n), -1, dtype=np.int64)
-    for start in range(n):
-        dist[start, start] = 0
-        frontier, level = [start], 0
-        while frontier:
-            level += 1
-            nxt = []
-            for i in frontier:
-                for j in table[i, : degree[i]]:
-                    if dist[start, j] < 0:
-                        dist[start, j] = level
-                        nxt.append(int(j))
-            frontier = nxt
+    table = np.asarray(graph.table)
+    dist = np.where(np.eye(n, dtype=bool), 0, -1)
+    frontier = np.eye(n, dtype=bool)
+    reached = frontier.copy()
+    for level in range(1, int(max_distance) + 1):
+        padded = np.concatenate([frontier, np.zeros((n, 1), dtype=bool)], axis=1)
+        frontier = padded[:, table].any(axis=2) & ~reached
+        if not frontier.any():
+            break
+        dist[frontier] = level
+        reached |= frontier
     return dist
 
 
@@ -131,7 +133,7 @@ def distance_pairs(graph: Neighbours, max_distance: int) -> list[np.ndarray]:
         raise ValueError(f"max_distance must be a positive integer, got {max_distance!r}.")
     if graph.boundary is not None:
         return [_grid_pairs(graph, d) for d in range(1, int(max_distance) + 1)]
-    dist = _shortest_paths(graph)
+    dist = _hops(graph, int(max_distance))
     upper = np.triu(np.ones_like(dist, dtype=bool), 1)
     return [np.argwhere(upper & (dist == d)) for d in range(1, int(max_distance) + 1)]
 

@@ -67,7 +67,7 @@ def predictive_p_values(observed: Any, replicates: Any) -> np.ndarray:
     return np.where(np.isfinite(obs) & (count > 0), p, np.nan)
 
 
-@dataclasses.dataclass(frozen=True)
+@dataclasses.dataclass(frozen=True, eq=False)
 class PredictiveCheck:
     """Observed statistics, their replicates and posterior-predictive p-values.
 
@@ -206,7 +206,13 @@ def _site_statistics(name, distribution, observed, extra, max_distance) -> Stati
             lattice_statistics(family.structure, labels, site=name, max_distance=max_distance)
         )
     for label, fn in (extra or {}).items():
-        sets.append(StatisticSet((f"{name}: {label}",), lambda x, fn=fn: jnp.ravel(fn(x))[:1]))
+        shape = np.shape(fn(jnp.asarray(observed)))
+        if int(np.prod(shape)) != 1:
+            raise ValueError(
+                f"The statistic '{label}' returned shape {shape} at site '{name}'; a statistic "
+                "must return one number (pass several statistics for several numbers)."
+            )
+        sets.append(StatisticSet((f"{name}: {label}",), lambda x, fn=fn: jnp.ravel(fn(x))))
     if not sets:
         raise ValueError(
             f"Site '{name}' ({family.name}) has no statistics to check: the family declares "

@@ -28,7 +28,15 @@ import arviz as az
 import numpy as np
 
 from zhat.check.noise import HIGH, LOW, NoiseReport
-from zhat.check.plots import figure_png, noise_figure, pair_figure, trace_figure
+from zhat.check.plots import (
+    MAX_PAIRS,
+    MAX_TRACES,
+    figure_png,
+    noise_figure,
+    pair_figure,
+    scalar_components,
+    trace_figure,
+)
 from zhat.check.predictive import PredictiveCheck
 from zhat.check.sticking import sticking
 from zhat.check.stored import sampler_description, stored_noise, stored_predictive, stored_sampler
@@ -47,6 +55,7 @@ section.no-warnings { border: 2px solid #2e7d32; background: #edf7ee; padding: 0
 table { border-collapse: collapse; font-size: 0.9em; }
 th, td { border: 1px solid #bbb; padding: 0.2em 0.6em; text-align: right; }
 th { background: #f0f0f0; }
+table.text td { text-align: left; }
 img { max-width: 100%; display: block; margin: 0.5em 0; }
 pre { background: #f6f6f6; padding: 0.6em; overflow-x: auto; font-size: 0.85em; }
 .flag { color: #b00020; font-weight: bold; }
@@ -136,9 +145,8 @@ def _estimator_section(estimators: dict[str, dict], sampler: dict | None) -> str
             f"</td><td>{flag}</td><td>{html.escape(str(info.get('note', '')))}</td></tr>"
         )
     body = (
-        "<table><tr><th>site</th><th>estimator</th><th>exactness</th><th>assumes</th></tr>"
-        + "".join(rows)
-        + "</table>"
+        '<table class="text"><tr><th>site</th><th>estimator</th><th>exactness</th>'
+        "<th>assumes</th></tr>" + "".join(rows) + "</table>"
         if rows
         else "<p>No intractable factor was recorded with this run.</p>"
     )
@@ -232,6 +240,13 @@ def write_report(
     title = title or "zhat run report"
     pair = pair_figure(posterior)
     chains, draws = next(iter(posterior.values())).shape[:2]
+    width = len(scalar_components(posterior))
+    shown = (
+        f"<p>The first {MAX_TRACES} of {width} parameter components.</p>"
+        if width > MAX_TRACES
+        else ""
+    )
+    paired = f"<p>The first {MAX_PAIRS} of {width} components.</p>" if width > MAX_PAIRS else ""
     sections = [
         f"<h1>{html.escape(title)}</h1>",
         f"<p>{chains} chains × {draws} draws. Written "
@@ -242,9 +257,11 @@ def write_report(
         + "</section>",
         _estimator_section(estimators, sampler_info),
         '<section id="traces"><h2>Trace plots</h2>'
+        + shown
         + _image(trace_figure(posterior), "trace plots")
         + "</section>",
         '<section id="pairs"><h2>Pair plot</h2>'
+        + paired
         + (_image(pair, "pair plot") if pair is not None else "<p>One parameter only.</p>")
         + "</section>",
         _noise_section(noise, log_estimates),
