@@ -213,11 +213,12 @@ def test_perfect_variants_on_4x4_torus_zero_field(key, kind):
 def test_pseudo_likelihood_reference_on_4x4_torus_with_field(key):
     nb = lattice.grid(4, 4, "periodic")
     theta = {"field": 0.1, "coupling": 0.3}
-    d = lattice.ising(nb, **theta)
+    d = lattice.ising(nb, **{k: jnp.asarray(v) for k, v in theta.items()})  # JAX: both fitted
     s, ok, _ = coupling_from_the_past(nb, 0.1, 0.3, jax.random.normal(key, (256, 16)))
     assert bool(ok)
     y = np.asarray(s).reshape(4, 4)
     fit = maximum_pseudo_likelihood(d, jnp.asarray(y))
+    assert d.fitted_parameters == ("field", "coupling")
     assert abs(float(fit["coupling"])) < 1.0 and abs(float(fit["field"])) < 1.0
     estimator = single_auxiliary(2, budget=256)  # reference="pseudo_likelihood"
     ratios = ratio_draws(jax.random.fold_in(key, 6), estimator, d, y)
@@ -270,11 +271,43 @@ def test_ising_pseudo_likelihood_is_a_logistic_regression(key):
     s, ok, _ = coupling_from_the_past(nb, 0.1, 0.3, jax.random.normal(key, (256, 64)))
     assert bool(ok)
     s = np.asarray(s)
-    fit = maximum_pseudo_likelihood(lattice.ising(nb, field=0.0, coupling=0.0), jnp.asarray(s))
+    d = lattice.ising(nb, field=0.0, coupling=0.0)
+    fit = maximum_pseudo_likelihood(d, jnp.asarray(s), parameters=("field", "coupling"))
     design = np.stack([2.0 * np.ones(64), 2.0 * direct_neighbour_sum(nb, s)], axis=1)
     h, coupling = logistic_fit(design, (s + 1.0) / 2.0)
     np.testing.assert_allclose(float(fit["field"]), h, atol=1e-6)
     np.testing.assert_allclose(float(fit["coupling"]), coupling, atol=1e-6)
+
+
+def test_a_field_the_model_fixes_is_held_by_the_reference(key):
+    """A model that passes the field as a plain number fixes it: the reference keeps that field
+    and fits the coupling alone, the logistic regression of (s_i + 1)/2 on 2 n_i with offset 2h
+    and no intercept (Besag 1975, The Statistician 24(3)); here h = 0, so no offset."""
+    nb = lattice.grid(8, 8)
+    s, ok, _ = coupling_from_the_past(nb, 0.0, 0.3, jax.random.normal(key, (256, 64)))
+    assert bool(ok)
+    s = np.asarray(s)
+    d = lattice.ising(nb, field=0.0, coupling=jnp.asarray(0.2))
+    assert d.held == ("field",) and d.fitted_parameters == ("coupling",)
+    fit = maximum_pseudo_likelihood(d, jnp.asarray(s))
+    (coupling,) = logistic_fit(2.0 * direct_neighbour_sum(nb, s)[:, None], (s + 1.0) / 2.0)
+    assert float(fit["field"]) == 0.0
+    np.testing.assert_allclose(float(fit["coupling"]), coupling, atol=1e-6)
+    # the estimator's reference is that point: mean ratio = exact Z(θ̂)/Z(θ) with θ̂ at field 0
+    theta = {"field": 0.0, "coupling": 0.3}
+    estimator = single_auxiliary(2, budget=256)
+    y = s.reshape(8, 8)[:4, :4]
+    nb4 = lattice.grid(4, 4, "periodic")
+    d4 = lattice.ising(nb4, field=0.0, coupling=jnp.asarray(theta["coupling"]))
+    fit4 = maximum_pseudo_likelihood(d4, jnp.asarray(y))
+    assert float(fit4["field"]) == 0.0
+    ratios = ratio_draws(jax.random.fold_in(key, 7), estimator, d4, y)
+
+    def log_z(p):
+        # Kaufman (1949), Phys. Rev. 76, 1232: exact zero-field torus log Z
+        return ref.kaufman_log_z(4, 4, float(p["coupling"]))
+
+    assert_mean_ratio(ratios, math.exp(log_z(fit4) - log_z(theta)), "held-field reference")
 
 
 def test_autologistic_pseudo_likelihood_is_a_logistic_regression(key):
@@ -287,7 +320,7 @@ def test_autologistic_pseudo_likelihood_is_a_logistic_regression(key):
     x, ok = d.family.perfect_sampler.draw(d.params, jax.random.normal(key, (256, 64)))
     assert bool(ok)
     x = np.asarray(x)
-    fit = maximum_pseudo_likelihood(d, jnp.asarray(x))
+    fit = maximum_pseudo_likelihood(d, jnp.asarray(x), parameters=("coupling", "coefficients"))
     np.testing.assert_array_equal(np.asarray(fit["covariates"]), covariates)
     design = np.concatenate([covariates, direct_neighbour_sum(nb, x)[:, None]], axis=1)
     beta = logistic_fit(design, x)
@@ -312,7 +345,7 @@ def test_pseudo_likelihood_without_maximiser_is_an_error(key, case):
         y = np.asarray(s).reshape(8, 8)
         d = lattice.ising(nb, field=np.full((8, 8), 0.1), coupling=0.3)
     with pytest.raises(ValueError, match="reference"):
-        maximum_pseudo_likelihood(d, jnp.asarray(y))
+        maximum_pseudo_likelihood(d, jnp.asarray(y), parameters=("field", "coupling"))
 
 
 # --- flags, wrong factors, and argument errors -----------------------------------------------

@@ -200,7 +200,7 @@ def test_heat_bath_leaves_exact_distribution_invariant(key, field_name, coupling
     @jax.jit
     @jax.vmap
     def run(s, z):
-        return ising_stats(nb, sweeps.gibbs_sweeps(nb, s, h, jnp.asarray(coupling), z))
+        return ising_stats(nb, lattice.gibbs_sweeps(nb, s, h, jnp.asarray(coupling), z))
 
     exact = ref.transfer_matrix_moments(3, 3, coupling, field, "free")
     # Kramers & Wannier (1941), Phys. Rev. 60, 252: transfer-matrix exact moments
@@ -217,7 +217,7 @@ def test_heat_bath_converges_from_all_plus(key):
     @jax.jit
     @jax.vmap
     def run(z):
-        return ising_stats(nb, sweeps.gibbs_sweeps(nb, jnp.ones(9), h, jnp.asarray(coupling), z))
+        return ising_stats(nb, lattice.gibbs_sweeps(nb, jnp.ones(9), h, jnp.asarray(coupling), z))
 
     exact = ref.transfer_matrix_moments(3, 3, coupling, field, "free")
     # Kramers & Wannier (1941), Phys. Rev. 60, 252: transfer-matrix exact moments
@@ -442,3 +442,37 @@ def test_magnetisation_in_ordered_phase_matches_yang(key):
     _, magnetisation = torus_run(jax.random.fold_in(key, 8), 0.6, ones, 100, 600, "gibbs")
     # Yang (1952), Phys. Rev. 85, 808: spontaneous magnetisation (1 − sinh(2K)^−4)^(1/8)
     within_mcse(magnetisation, float(ref.yang_magnetisation(0.6)), "|m| at K = 0.6")
+
+
+@pytest.mark.parametrize(
+    ("shape", "boundary"), [((6, 8), "free"), ((6, 8), "periodic"), ((5, 7), "free")]
+)
+@pytest.mark.parametrize("field_kind", ["scalar", "per site"])
+@pytest.mark.parametrize("coupling", [0.4, -0.3])
+def test_fast_sweep_is_the_colour_class_sweep(key, shape, boundary, field_kind, coupling):
+    """The threshold-table and quarter-layout sweep computes the same spins as the plain
+    colour-class sweep with U = Φ(z) from the same noise (Φ is increasing, so U < p ⇔
+    z < Φ⁻¹(p); common practice), on grids with even sides (quarters) and odd ones."""
+    from zhat.families.lattice.spin_sweep import spin_sweep
+
+    nb = lattice.grid(*shape, boundary)
+    n = nb.num_sites
+    k_start, k_noise, k_field = jax.random.split(key, 3)
+    s = jnp.where(jax.random.bernoulli(k_start, 0.5, (n,)), 1.0, -1.0)
+    z = jax.random.normal(k_noise, (7, n))
+    h = jnp.asarray(0.1) if field_kind == "scalar" else 0.3 * jax.random.normal(k_field, (n,))
+    j = jnp.asarray(coupling)
+    plain = s
+    for t in range(7):
+        plain = sweeps.heat_bath_sweep(nb, plain, jnp.broadcast_to(h, (n,)), j, ndtr(z[t]))
+    np.testing.assert_array_equal(lattice.gibbs_sweeps(nb, s, h, j, z), plain)
+    signs = jnp.asarray([1.0, -1.0])  # the sublattice flip of coupling from the past
+    plan = spin_sweep(nb, h, j, signs if nb.bipartite else None)
+    state = plan.to_state(s)
+    for t in range(7):
+        state = plan.sweep(state, plan.to_noise(z[t]))
+    flipped = jnp.broadcast_to(h, (n,)) * (signs[jnp.asarray(nb.sides)] if nb.bipartite else 1.0)
+    plain = s
+    for t in range(7):
+        plain = sweeps.heat_bath_sweep(nb, plain, flipped, j, ndtr(z[t]))
+    np.testing.assert_array_equal(plan.from_state(state), plain)

@@ -31,12 +31,17 @@ def maximum_pseudo_likelihood(
     dist: UnnormalizedDistribution,
     data: Array,
     *,
+    parameters: tuple[str, ...] | None = None,
     max_steps: int = 50,
     tol: float = 1e-9,
 ) -> dict[str, Array]:
     """Maximum pseudo-likelihood estimate of ``dist``'s free parameters from ``data``.
 
-    :return: the full parameter dict (fixed inputs unchanged, free ones at the estimate).
+    :param parameters: the names to fit; default the free parameters the model does not hold
+        (see :attr:`UnnormalizedDistribution.fitted_parameters`).
+
+    :return: the full parameter dict (fixed inputs and held parameters unchanged, the other
+        free ones at the estimate).
     """
     family = dist.family
     if family.pseudo_log_likelihood is None or not family.free_parameters:
@@ -44,8 +49,17 @@ def maximum_pseudo_likelihood(
             f"Family '{family.name}' defines no pseudo-likelihood; give the estimator an "
             "explicit `reference={...}` point."
         )
+    fitted = dist.fitted_parameters if parameters is None else tuple(parameters)
+    unknown = sorted(set(fitted) - set(family.free_parameters))
+    if unknown:
+        raise ValueError(
+            f"Family '{family.name}' has no free parameters {unknown}; its free parameters "
+            f"are {list(family.free_parameters)}."
+        )
+    if not fitted:
+        return dict(dist.params)
     with jax.ensure_compile_time_eval():
-        fixed = {k: v for k, v in dist.params.items() if k not in family.free_parameters}
+        fixed = {k: v for k, v in dist.params.items() if k not in fitted}
         for k, v in fixed.items():
             if isinstance(v, jax.core.Tracer):
                 raise ValueError(
@@ -53,8 +67,7 @@ def maximum_pseudo_likelihood(
                     "estimator an explicit `reference={...}` point."
                 )
         free0 = {
-            k: jnp.zeros(jnp.shape(dist.params[k]), jnp.result_type(float))
-            for k in family.free_parameters
+            k: jnp.zeros(jnp.shape(dist.params[k]), jnp.result_type(float)) for k in fitted
         }
         flat0, unravel = ravel_pytree(free0)
 
@@ -115,10 +128,12 @@ class ReferenceCache:
                 "The pseudo-likelihood reference needs concrete data, but the data are traced "
                 "(e.g. MCMC(jit_model_args=True)). Give the estimator `reference={...}`."
             )
-        key = (id(dist.family), np.asarray(data).tobytes())
+        fitted = dist.fitted_parameters
+        held = {k: np.asarray(dist.params[k]).tobytes() for k in dist.held}
+        key = (id(dist.family), np.asarray(data).tobytes(), tuple(sorted(held.items())))
         if key not in self._fits:
             fit = maximum_pseudo_likelihood(dist, data)
-            self._fits[key] = {k: fit[k] for k in dist.family.free_parameters}
+            self._fits[key] = {k: fit[k] for k in fitted}
         return {**dist.params, **self._fits[key]}
 
 

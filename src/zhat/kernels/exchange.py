@@ -64,7 +64,9 @@ class Exchange(ModelKernel):
     :param model: a model with one or more observed unnormalized families (not exposed).
     :param sampler: ``"perfect"``, or a family simulator name for the approximate form.
     :param sweeps: simulator transitions per auxiliary draw (approximate form only).
-    :param budget: largest number of sweeps of the perfect sampler.
+    :param budget: largest number of sweeps of the perfect sampler. The kernel draws its own
+        random numbers only for the sweeps a draw uses, so a large budget costs nothing until
+        a proposal needs it (near and above a critical coupling); a draw that runs out rejects.
     :param proposal_scale: initial random-walk sd per unconstrained coordinate.
     :param target_accept: acceptance rate the warmup adaptation aims for.
     """
@@ -75,7 +77,7 @@ class Exchange(ModelKernel):
         *,
         sampler: str = "perfect",
         sweeps: int = 20,
-        budget: int = 1024,
+        budget: int = 8192,
         proposal_scale: float = 0.2,
         target_accept: float = 0.3,
     ) -> None:

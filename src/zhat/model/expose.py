@@ -184,6 +184,15 @@ class expose(Messenger):
             },
         }
 
+    def postprocess_message(self, msg: dict[str, Any]) -> None:
+        # Latent values reach the model as JAX arrays even when substituted as plain numbers:
+        # families hold free parameters the model passes as plain numbers fixed (see
+        # zhat.model.unnormalized), and a sampled value must never be mistaken for one.
+        if msg["type"] == "sample" and not msg["is_observed"]:
+            value = msg["value"]
+            if value is not None and not isinstance(value, (jax.Array, jax.core.Tracer)):
+                msg["value"] = jnp.asarray(value)
+
     def describe(self, *args: Any, **kwargs: Any) -> list[FactorInfo]:
         """Trace the model abstractly (no computation) and list what was exposed where."""
         found: list[FactorInfo] = []

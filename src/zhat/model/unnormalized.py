@@ -16,7 +16,9 @@ calling the family with parameters gives a NumPyro distribution for
 - ``validate(x)``: raise a clear error for data outside the family (wrong labels, shape, NaN),
 - ``pseudo_log_likelihood(x, **params)``: Σ_i log p(x_i | x_{−i}; θ) (Besag 1975),
 - ``free_parameters``: the parameter names a point estimate fits (others are fixed inputs,
-  e.g. covariates),
+  e.g. covariates). A free parameter the model passes as a plain number or NumPy array (not a
+  JAX array, as sampled sites are) is *held* at that value: a model that fixes the field of an
+  Ising model at zero gets a reference point with zero field,
 - ``structure``: the fixed structure the family lives on (e.g. a neighbour graph).
 
 The log density of such a site is unavailable; :func:`zhat.expose` replaces it by an estimate.
@@ -96,12 +98,21 @@ class UnnormalizedDistribution(IntractableFactor):
     """A member g(·; θ)/Z(θ) of a :class:`Family` at fixed parameters θ."""
 
     pytree_data_fields = ("params",)
-    pytree_aux_fields = ("family",)
+    pytree_aux_fields = ("family", "held")
 
     def __init__(
-        self, family: Family, params: dict[str, ArrayLike], event_shape: tuple[int, ...] = ()
+        self,
+        family: Family,
+        params: dict[str, ArrayLike],
+        event_shape: tuple[int, ...] = (),
+        held: tuple[str, ...] | None = None,
     ) -> None:
         self.family = family
+        if held is None:
+            held = tuple(
+                k for k in family.free_parameters if k in params and not _is_jax(params[k])
+            )
+        self.held = held
         # fixed inputs given as numbers stay concrete under jit (the reference fit needs them)
         with jax.ensure_compile_time_eval():
             self.params = {k: jnp.asarray(v) for k, v in params.items()}
@@ -130,13 +141,25 @@ class UnnormalizedDistribution(IntractableFactor):
 
     def with_params(self, **params: ArrayLike) -> UnnormalizedDistribution:
         """The same family at other parameter values (the rest unchanged)."""
-        return UnnormalizedDistribution(self.family, {**self.params, **params}, self.event_shape)
+        held = tuple(k for k in self.held if k not in params)
+        return UnnormalizedDistribution(
+            self.family, {**self.params, **params}, self.event_shape, held
+        )
+
+    @property
+    def fitted_parameters(self) -> tuple[str, ...]:
+        """The free parameters a reference fit estimates (those the model does not hold)."""
+        return tuple(k for k in self.family.free_parameters if k not in self.held)
 
     def statistics(self, x: ArrayLike) -> Array:
         """Sufficient statistics s(x); a clear error if the family declares none."""
         if self.family.statistics is None:
             raise ValueError(f"Family '{self.family.name}' declares no sufficient statistics.")
         return jnp.asarray(self.family.statistics(jnp.asarray(x)))
+
+
+def _is_jax(value: Any) -> bool:
+    return isinstance(value, (jax.Array, jax.core.Tracer))
 
 
 def unnormalized(

@@ -3,8 +3,8 @@
 from zhat.families.lattice.graph import Neighbours, from_adjacency, grid
 from zhat.families.lattice.models import autologistic, ising, potts
 from zhat.families.lattice.perfect import coupling_from_the_past
+from zhat.families.lattice.spin_sweep import gibbs_sweeps
 from zhat.families.lattice.sweeps import (
-    gibbs_sweeps,
     heat_bath_sweep,
     neighbour_sum,
     potts_gibbs_sweeps,

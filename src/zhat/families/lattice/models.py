@@ -26,8 +26,8 @@ from numpyro.distributions import constraints
 from zhat.estimators.auxiliary import single_auxiliary
 from zhat.families.lattice.graph import Neighbours
 from zhat.families.lattice.perfect import coupling_from_the_past, perfect_noise_shape
+from zhat.families.lattice.spin_sweep import spin_sweep
 from zhat.families.lattice.sweeps import (
-    heat_bath_sweep,
     neighbour_sum,
     potts_heat_bath_sweep,
     potts_swendsen_wang,
@@ -95,7 +95,7 @@ def _flat(x: ArrayLike, dtype=None) -> Array:
 def _site_field(nb: Neighbours, field: ArrayLike, dtype) -> Array:
     field = jnp.asarray(field, dtype)
     if field.ndim == 0:
-        return jnp.broadcast_to(field, (nb.num_sites,))
+        return field  # one number: the samplers use their threshold tables
     if field.size != nb.num_sites:
         raise ValueError(f"A site field needs {nb.num_sites} values; got shape {field.shape}.")
     return field.reshape(-1)
@@ -110,11 +110,13 @@ def _edge_sum(nb: Neighbours, s: Array) -> Array:
 def _spin_transitions(nb: Neighbours, to_spin, from_spin, spin_params):
     def gibbs(params, x, noise):
         h, j = spin_params(params)
-        s = to_spin(x)
-        return from_spin(heat_bath_sweep(nb, s, h, j, jax.scipy.special.ndtr(noise)))
+        plan = spin_sweep(nb, h, j)
+        s = plan.sweep(plan.to_state(to_spin(x)), plan.to_noise(noise))
+        return from_spin(plan.from_state(s))
 
     def sw(params, x, noise):
         h, j = spin_params(params)
+        h = jnp.broadcast_to(h, (nb.num_sites,))
         return from_spin(swendsen_wang(nb, to_spin(x), h, j, noise))
 
     return {
@@ -261,12 +263,14 @@ def autologistic(
             f"covariates must have shape ({n}, p) — one row per site; got {covariates.shape}."
         )
     if coefficients is None:
-        coefficients = jnp.zeros((covariates.shape[1],), dtype)
-    coefficients = jnp.atleast_1d(jnp.asarray(coefficients, dtype))
-    if coefficients.shape != (covariates.shape[1],):
+        coefficients = np.zeros((covariates.shape[1],))  # numpy: held fixed by reference fits
+    if not isinstance(coefficients, (jax.Array, jax.core.Tracer)):
+        coefficients = np.asarray(coefficients, dtype=float)
+    coefficients = coefficients.reshape(-1) if np.ndim(coefficients) == 0 else coefficients
+    if np.shape(coefficients) != (covariates.shape[1],):
         raise ValueError(
             f"coefficients must have shape ({covariates.shape[1]},) to match the covariates; "
-            f"got {coefficients.shape}."
+            f"got {np.shape(coefficients)}."
         )
     family = _autologistic_family(graph, bool(centred))
     return family(coupling=coupling, covariates=covariates, coefficients=coefficients)
@@ -340,10 +344,10 @@ def potts(graph: Neighbours, coupling: ArrayLike = 0.0, q: int = 3, field: Array
     _check_graph(graph)
     if not (isinstance(q, (int, np.integer)) and q >= 2):
         raise ValueError(f"q must be an integer ≥ 2, got {q!r}.")
-    field = jnp.zeros((int(q),)) if field is None else jnp.asarray(field)
-    if field.shape not in ((q,), (graph.num_sites, q)):
+    field = np.zeros((int(q),)) if field is None else field  # numpy: held by reference fits
+    if np.shape(field) not in ((q,), (graph.num_sites, q)):
         raise ValueError(
-            f"field must have shape ({q},) or ({graph.num_sites}, {q}); got {field.shape}."
+            f"field must have shape ({q},) or ({graph.num_sites}, {q}); got {np.shape(field)}."
         )
     return _potts_family(graph, int(q))(coupling=coupling, field=field)
 

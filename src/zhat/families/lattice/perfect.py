@@ -9,9 +9,10 @@ Otherwise T doubles, reusing the uniforms already assigned to times −1, …, �
 t drives the sweep at time −(t + 1)).
 
 Here the noise is an explicit array of standard normals, shape (max_sweeps, N): the draw is a
-deterministic function of it. A kernel with randomness of its own (the exchange algorithm) may
-pass a PRNG key instead, with ``max_sweeps``: row t is then drawn from ``fold_in(key, t)`` only
-when the doubling reaches it, so the unused part of the budget costs nothing.
+deterministic function of it, and only the rows the doubling reaches are ever transformed. A
+kernel with randomness of its own (the exchange algorithm) may pass a PRNG key instead, with
+``max_sweeps``: row t is then a row of uniforms drawn from ``fold_in(key, t)`` only when the
+doubling reaches it, so the unused part of the budget costs nothing.
 
 Doubling stops at the budget ``max_sweeps``; the result then is
 the upper chain's state, *not* an exact draw, and the returned flag says so.
@@ -28,10 +29,9 @@ import math
 import jax
 import jax.numpy as jnp
 from jax import lax
-from jax.scipy.special import ndtr
 
 from zhat.families.lattice.graph import Neighbours
-from zhat.families.lattice.sweeps import heat_bath_sweep
+from zhat.families.lattice.spin_sweep import spin_sweep
 
 Array = jax.Array
 
@@ -57,46 +57,51 @@ def coupling_from_the_past(
         number of time steps T of the last attempt.
     """
     n = nb.num_sites
-    if jax.dtypes.issubdtype(noise.dtype, jax.dtypes.prng_key):
+    keyed = jax.dtypes.issubdtype(noise.dtype, jax.dtypes.prng_key)
+    if keyed:
         if max_sweeps is None:
             raise ValueError("coupling_from_the_past with a key needs max_sweeps.")
         key, dtype = noise, jnp.result_type(float)
-
-        def uniform_row(t: Array) -> Array:
-            return ndtr(jax.random.normal(jax.random.fold_in(key, t), (n,), dtype))
-
     else:
         max_sweeps = noise.shape[0]
         if noise.shape[1:] != (n,):
             raise ValueError(f"Noise has shape {noise.shape} for a graph of {n} sites.")
         dtype = noise.dtype
-        uniforms = ndtr(noise)
-
-        def uniform_row(t: Array) -> Array:
-            return uniforms[t]
 
     # attempts at first_sweeps · 2^level, the last one clipped to the whole budget
     levels = 1 + max(0, math.ceil(math.log2(max_sweeps / first_sweeps)))
-    h = jnp.broadcast_to(jnp.asarray(h, dtype), (n,))
+    h = jnp.asarray(h, dtype)
     coupling = jnp.asarray(coupling, dtype)
     if nb.bipartite:
-        flip = jnp.where(coupling < 0, 1.0 - 2.0 * jnp.asarray(nb.sides, dtype), 1.0)
+        side_signs = jnp.where(coupling < 0, jnp.array([1.0, -1.0], dtype), 1.0)
+        flip = side_signs[jnp.asarray(nb.sides)]
         possible = jnp.array(True)
     else:
-        flip = jnp.ones((n,), dtype)
+        side_signs, flip = None, jnp.ones((n,), dtype)
         possible = coupling >= 0
-    h_eff, j_eff = h * flip, jnp.abs(coupling)
+    # a key draws uniforms directly, only for the rows the doubling reaches (row t from
+    # fold_in(key, t)); an array is standard normal, each row transformed when it is used
+    plan = spin_sweep(nb, h, jnp.abs(coupling), side_signs, uniform=keyed)
+
+    def noise_row(t: Array) -> Array:
+        if keyed:
+            return plan.to_noise(jax.random.uniform(jax.random.fold_in(key, t), (n,), dtype))
+        return plan.to_noise(noise[t])
 
     def attempt(level: Array) -> tuple[Array, Array, Array]:
         """Both bounding chains (as one batch) from time −t to 0."""
         t = jnp.minimum(first_sweeps * 2**level, max_sweeps)
 
-        def body(k: Array, pair: Array) -> Array:
-            u = uniform_row(t - 1 - k)
-            return jax.vmap(lambda s: heat_bath_sweep(nb, s, h_eff, j_eff, u))(pair)
+        def body(k: Array, pair):
+            z = noise_row(t - 1 - k)
+            return jax.vmap(lambda q: plan.sweep(q, z))(pair)
 
-        start = jnp.stack([jnp.ones((n,), dtype), -jnp.ones((n,), dtype)])
-        top, bottom = lax.fori_loop(0, t, body, start)
+        start = jax.vmap(plan.to_state)(jnp.stack([jnp.ones((n,), dtype), -jnp.ones((n,), dtype)]))
+        pair = lax.fori_loop(0, t, body, start)
+        top, bottom = (
+            plan.from_state(jax.tree.map(lambda a: a[0], pair)),
+            plan.from_state(jax.tree.map(lambda a: a[1], pair)),
+        )
         return top, jnp.all(top == bottom), t
 
     def cond(carry):

@@ -31,7 +31,6 @@ from zhat.families.lattice.graph import Neighbours
 Array = jax.Array
 
 __all__ = [
-    "gibbs_sweeps",
     "heat_bath_sweep",
     "neighbour_sum",
     "potts_gibbs_sweeps",
@@ -74,15 +73,6 @@ def heat_bath_sweep(nb: Neighbours, s: Array, h: Array, coupling: Array, uniform
         new = jnp.where(uniform < jax.nn.sigmoid(2.0 * local), 1.0, -1.0).astype(s.dtype)
         s = jnp.where(colours == c, new, s) if nb.num_colours > 1 else new
     return s
-
-
-def gibbs_sweeps(nb: Neighbours, s: Array, h: Array, coupling: Array, noise: Array) -> Array:
-    """``noise.shape[0]`` heat-bath sweeps from ``s``; noise is standard normal, (T, N)."""
-
-    def body(state: Array, z: Array) -> tuple[Array, None]:
-        return heat_bath_sweep(nb, state, h, coupling, ndtr(z)), None
-
-    return lax.scan(body, s, noise)[0]
 
 
 def _components(nb: Neighbours, bonded: Array) -> Array:
