@@ -13,7 +13,7 @@ $(STAMP): pyproject.toml
 	touch $(STAMP)
 
 demo: $(STAMP)
-	$(BIN)/python examples/beetle_plots.py
+	$(BIN)/zhat demo
 	$(BIN)/python examples/moth_traps.py
 
 test: $(STAMP)

@@ -1,0 +1,1 @@
+"""Invented scenarios with their models and data, shipped with the package for ``zhat demo``."""
