@@ -166,7 +166,7 @@ def _restore(fresh: Any, leaves: list[np.ndarray], path: Path) -> Any:
     if not fits:
         raise CommandError(
             f"the sampler state in {path} does not fit this model and sampler (changed since "
-            "the run started?); restore them, or start afresh with `zhat fit`."
+            "the run started?); restore them, or start over with `zhat fit ... --replace`."
         )
     return jax.tree.unflatten(treedef, restored)
 

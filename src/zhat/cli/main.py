@@ -95,7 +95,9 @@ def parser() -> argparse.ArgumentParser:
     fit.add_argument("--out", metavar="RUN.nc", help="saved run (default: MODEL.nc)")
     fit.add_argument("--report", metavar="REPORT.html", help="(default: RUN.html)")
     fit.add_argument(
-        "--restart", action="store_true", help="discard a stopped run's checkpoint and start over"
+        "--replace",
+        action="store_true",
+        help="start over, replacing a stopped or finished run saved at --out",
     )
     _add_run_options(fit, chains=2, warmup=500, samples=1000)
 
@@ -127,14 +129,20 @@ def _settings(args: argparse.Namespace):
     return Settings(args.chains, args.warmup, args.samples, args.seed, every)
 
 
-def _refuse_overwrite(checkpoint: Path, out: Path, restart: bool) -> None:
+def _refuse_overwrite(checkpoint: Path, out: Path, replace: bool) -> None:
+    """Never lose a run by accident: a stopped run is continued, a finished one kept."""
     if checkpoint.exists():
-        if not restart:
+        if not replace:
             raise CommandError(
                 f"a stopped run is saved in {checkpoint}; continue it with `zhat resume {out}`, "
-                "or start over with --restart."
+                "or start over with --replace."
             )
         checkpoint.unlink()
+    elif out.exists() and not replace:
+        raise CommandError(
+            f"{out} already holds a finished run; choose another --out, or pass --replace to "
+            "overwrite it."
+        )
 
 
 def run_demo(args: argparse.Namespace) -> int:
@@ -149,7 +157,7 @@ def run_demo(args: argparse.Namespace) -> int:
     presence = job.data["presence"]
     print(f"\n{int(presence.sum())} of {presence.size} plots hold the beetle.\n")
     out.parent.mkdir(parents=True, exist_ok=True)
-    _refuse_overwrite(checkpoint_path(out), out, restart=True)
+    _refuse_overwrite(checkpoint_path(out), out, replace=True)  # the demo is redone
     return _execute(job, _settings(args), out, None, args)
 
 
@@ -196,7 +204,7 @@ def run_fit(args: argparse.Namespace) -> int:
         "report": str(report.resolve()) if report else None,
     }
     job = _file_job(args.model, args.data, outputs)
-    _refuse_overwrite(checkpoint_path(out), out, args.restart)
+    _refuse_overwrite(checkpoint_path(out), out, args.replace)
     out.parent.mkdir(parents=True, exist_ok=True)
     return _execute(job, _settings(args), out, None, args)
 
@@ -230,7 +238,7 @@ def run_resume(args: argparse.Namespace) -> int:
             if not Path(path).is_file() or file_digest(Path(path)) != digest:
                 raise CommandError(
                     f"{path} is missing or changed since the run started, so the run cannot be "
-                    "continued; restore it, or start over with `zhat fit ... --restart`."
+                    "continued; restore it, or start over with `zhat fit ... --replace`."
                 )
         job = _file_job(source["model"], source["data"], outputs)
     settings = Settings(**saved.meta["settings"])
