@@ -129,3 +129,11 @@ def test_graph_formats(tmp_path):
     data, _ = load_data([f"neighbours={tmp_path / 'plots.edgelist'}"])
     assert list(data) == ["neighbours"]
     np.testing.assert_array_equal(data["neighbours"], path)
+
+
+def test_model_that_fails_on_the_data(capsys, inputs, tmp_path):
+    wrong = (tmp_path / "lg.py").read_text().replace("y.shape", "(3,)")  # 3 latent values, 10 y
+    (tmp_path / "wrong.py").write_text(wrong)
+    line = error_of(capsys, "fit", "wrong.py", "--data", "y.npy", "--no-progress")
+    assert line.startswith("zhat fit: error: the model failed on the data (")
+    assert "check the model and that each data array has the shape and type it expects" in line

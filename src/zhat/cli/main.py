@@ -31,20 +31,30 @@ def _count(text: str) -> int:
 
 
 def _add_run_options(parser: argparse.ArgumentParser, chains: int, warmup: int, samples: int):
-    parser.add_argument("--chains", type=_positive, default=chains, help=f"(default {chains})")
     parser.add_argument(
-        "--warmup", type=_count, default=warmup, help=f"warmup steps per chain (default {warmup})"
+        "--chains", type=_positive, default=chains, metavar="N", help=f"(default {chains})"
     )
     parser.add_argument(
-        "--samples", type=_positive, default=samples, help=f"draws per chain (default {samples})"
+        "--warmup",
+        type=_count,
+        default=warmup,
+        metavar="N",
+        help=f"warmup steps per chain (default {warmup})",
     )
-    parser.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
+    parser.add_argument(
+        "--samples",
+        type=_positive,
+        default=samples,
+        metavar="N",
+        help=f"draws per chain (default {samples})",
+    )
+    parser.add_argument("--seed", type=int, default=0, metavar="N", help="random seed (default 0)")
     parser.add_argument(
         "--save-every",
         type=_positive,
         default=None,
         metavar="N",
-        help=f"steps per chain between checkpoints (default: about {NUM_CHUNKS} per run)",
+        help=f"steps per chain between checkpoints (default: {NUM_CHUNKS} checkpoints a run)",
     )
     parser.add_argument(
         "--noise-draws",
@@ -71,12 +81,22 @@ def _add_test_hooks(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--kill-after", type=_positive, default=None, help=argparse.SUPPRESS)
 
 
+def _version() -> str:
+    from importlib.metadata import PackageNotFoundError, version
+
+    try:
+        return version("zhat")
+    except PackageNotFoundError:
+        return "(not installed)"
+
+
 def parser() -> argparse.ArgumentParser:
     top = argparse.ArgumentParser(
         prog="zhat",
         description="Posteriors of models with intractable normalizing constants or "
         "estimated likelihoods (pseudo-marginal MCMC on NumPyro).",
     )
+    top.add_argument("--version", action="version", version=f"zhat {_version()}")
     sub = top.add_subparsers(dest="command", required=True, metavar="COMMAND")
 
     demo = sub.add_parser("demo", help="fit the built-in beetle-plot example (invented data)")
@@ -269,14 +289,6 @@ def _chains(count: int) -> str:
 def _execute(job, settings, out: Path, saved, args: argparse.Namespace) -> int:
     """Sample (or continue), then print the summary and write the run and its report."""
     from zhat.cli.chunked import Interrupted, checkpoint_path, sample
-    from zhat.cli.outputs import (
-        inference_data,
-        noise_reports,
-        predictive_check,
-        render_report,
-        save_run,
-        summary_text,
-    )
 
     checkpoint = checkpoint_path(out)
     how = f"zhat resume {out}"
@@ -296,6 +308,7 @@ def _execute(job, settings, out: Path, saved, args: argparse.Namespace) -> int:
             kill_after=args.kill_after,
             progress=not args.no_progress,
         )
+        return _finish(job, settings, out, checkpoint, result)
     except Interrupted as stop:
         drawn = max(0, stop.done - stop.warmup)
         print(
@@ -304,13 +317,25 @@ def _execute(job, settings, out: Path, saved, args: argparse.Namespace) -> int:
         )
         return EXIT_STOPPED
     except KeyboardInterrupt:
-        kept = (
-            f"saved up to the last chunk in {checkpoint}"
-            if checkpoint.exists()
-            else ("nothing was saved yet")
-        )
+        if checkpoint.exists():
+            kept = f"everything up to the last chunk is saved in {checkpoint}"
+        else:
+            kept = "nothing was sampled yet"
         print(f"\nStopped at once; {kept}.\nContinue with: {how}", file=sys.stderr)
         return EXIT_STOPPED
+
+
+def _finish(job, settings, out: Path, checkpoint: Path, result) -> int:
+    """Summary, checks, the saved run (then the checkpoint goes) and the report."""
+    from zhat.cli.outputs import (
+        inference_data,
+        noise_reports,
+        predictive_check,
+        render_report,
+        save_run,
+        summary_text,
+    )
+
     noise = noise_reports(result, job, settings.seed, job.source.get("noise_draws") or 0)
     print(
         f"\nPosterior ({_chains(settings.chains)} × {settings.samples} draws after "
@@ -327,17 +352,21 @@ def _execute(job, settings, out: Path, saved, args: argparse.Namespace) -> int:
     idata = inference_data(result, job, settings, noise, predictive)
     save_run(out, idata)
     checkpoint.unlink(missing_ok=True)
-    report = Path(job.source.get("report") or out.with_suffix(".html"))
-    written = render_report(
-        report,
-        idata,
-        factors=result.factors,
-        noise=noise,
-        predictive=predictive,
-        title=job.title,
-        sampler=result.kernel,
-    )
     print(f"\nRun saved:   {out}  (ArviZ InferenceData; `arviz.from_netcdf`)")
+    report = Path(job.source.get("report") or out.with_suffix(".html"))
+    try:
+        written = render_report(
+            report,
+            idata,
+            factors=result.factors,
+            noise=noise,
+            predictive=predictive,
+            title=job.title,
+            sampler=result.kernel,
+        )
+    except KeyboardInterrupt:
+        print(f"\nStopped before the report was written; `zhat report {out}` writes it.")
+        return EXIT_STOPPED
     if written is not None:
         print(f"Report:      {written}")
         print(f"Render again: zhat report {out}")
