@@ -27,6 +27,10 @@ class NoiseKernel(ModelKernel):
                 "zhat.kernels.Slice), e.g. with `zhat.kernels.pseudo_marginal_gibbs`."
             )
 
+    def own_offset(self, z: dict[str, Array]) -> Array:
+        # the log likelihood is the log joint minus the N(0, I) prior's -|u|²/2 (see below)
+        return super().own_offset(z) + sum(0.5 * jnp.sum(jnp.square(z[s])) for s in self._sites)
+
     def _block_logdensity(
         self, model_args: tuple, model_kwargs: dict, full: LogDensityFn
     ) -> LogDensityFn:

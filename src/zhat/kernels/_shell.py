@@ -70,6 +70,10 @@ class ModelKernel(MCMCKernel):
     """
 
     sample_field = "z"
+    full_joint = True
+    """Whether ``logdensity`` is the model's log joint of the constrained values plus
+    :meth:`own_offset` (then a composite can hand a sibling's fresh log density on instead of
+    evaluating the model again)."""
 
     def __init__(self, model: Callable) -> None:
         if not callable(model):
@@ -183,6 +187,16 @@ class ModelKernel(MCMCKernel):
         if not is_prng_key(state.rng_key):
             return jax.vmap(one)(state)
         return one(state)
+
+    def own_offset(self, z: dict[str, Array]) -> Array:
+        """``logdensity`` minus the log joint at ``z``: the log-Jacobian of the block's transforms
+        from unconstrained to constrained values."""
+        terms = [
+            jnp.sum(transform.log_abs_det_jacobian(z[site], transform(z[site])))
+            for site, transform in self._transforms.items()
+        ]
+        dtype = jnp.result_type(*[z[site] for site in self._transforms])
+        return sum(terms, jnp.zeros((), dtype))
 
     def refresh(
         self, state: BlockState, model_args: tuple, model_kwargs: dict | None

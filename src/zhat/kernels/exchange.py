@@ -71,6 +71,8 @@ class Exchange(ModelKernel):
     :param target_accept: acceptance rate the warmup adaptation aims for.
     """
 
+    full_joint = False  # its log density is the model under as_potential, not the joint
+
     def __init__(
         self,
         model: Callable,

@@ -22,12 +22,14 @@ from __future__ import annotations
 from collections.abc import Callable
 from typing import Any
 
+from jax import random
 from numpyro.infer import NUTS
 from numpyro.infer.gibbs import Gibbs, prototype_trace, with_conditioning
 from numpyro.infer.hmc import HMC
 from numpyro.infer.mcmc import MCMCKernel
 from numpyro.util import is_prng_key
 
+from zhat.kernels._shell import ModelKernel
 from zhat.kernels.elliptical_slice import EllipticalSlice
 from zhat.kernels.noise_refresh import IndependentRefresh
 from zhat.kernels.random_walk import RandomWalk
@@ -118,7 +120,36 @@ class PseudoMarginalGibbs(MCMCKernel):
         return self._gibbs.init(rng_key, num_warmup, init_params, model_args, model_kwargs)
 
     def sample(self, state, model_args, model_kwargs):
+        blocks = [kernel for kernel, _ in self.gibbs.blocks]
+        if all(isinstance(k, ModelKernel) and k.full_joint for k in blocks):
+            return self._sweep_passing_densities(state, model_args, model_kwargs or {})
         return self.gibbs.sample(state, model_args, model_kwargs)
+
+    def _sweep_passing_densities(self, state, model_args, model_kwargs):
+        """One Gibbs sweep in which each block, after its move, hands the log joint it has just
+        computed to the other blocks (each adds its own Jacobian term, ``own_offset``) instead
+        of NumPyro's ``refresh``, which evaluates the estimator again after every move."""
+        blocks = [kernel for kernel, _ in self.gibbs.blocks]
+        states = list(state.block_states)
+        own = [
+            k.get_constrain_fn(model_args, model_kwargs)(getattr(st, k.sample_field))
+            for k, st in zip(blocks, states, strict=True)
+        ]
+        for i, kernel in enumerate(blocks):
+            siblings = {n: v for j, values in enumerate(own) if j != i for n, v in values.items()}
+            kwargs = with_conditioning(model_kwargs, siblings)
+            states[i] = kernel.sample(states[i], model_args, kwargs)
+            z = states[i].z
+            own[i] = kernel.get_constrain_fn(model_args, kwargs)(z)
+            log_joint = states[i].logdensity - kernel.own_offset(z)
+            for j, other in enumerate(blocks):
+                if j != i:
+                    states[j] = states[j]._replace(
+                        logdensity=log_joint + other.own_offset(states[j].z)
+                    )
+        merged = {n: v for st in states for n, v in st.z.items()}
+        rng_key, _ = random.split(state.rng_key)
+        return state._replace(z=merged, block_states=tuple(states), rng_key=rng_key)
 
     def refresh(self, state, model_args, model_kwargs):
         """Recompute every block's cached values against its siblings' current values.
