@@ -66,9 +66,7 @@ def maximum_pseudo_likelihood(
                     f"The fixed input '{k}' of family '{family.name}' is traced; give the "
                     "estimator an explicit `reference={...}` point."
                 )
-        free0 = {
-            k: jnp.zeros(jnp.shape(dist.params[k]), jnp.result_type(float)) for k in fitted
-        }
+        free0 = {k: jnp.zeros(jnp.shape(dist.params[k]), jnp.result_type(float)) for k in fitted}
         flat0, unravel = ravel_pytree(free0)
 
         def objective(v: Array) -> Array:
