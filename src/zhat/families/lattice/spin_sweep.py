@@ -9,11 +9,11 @@ cheaper without changing what it computes:
   largest degree): the 2D + 1 thresholds Φ⁻¹(σ(2 (h + J n))) are computed once per sweep and
   no site needs Φ (the same idea as a precomputed table of conditional probabilities, common
   practice). A field that varies by site takes Φ(z_i) per site as before.
-- **Quarter layout on grids with even sides.** Site (r, c) is stored in one of four
-  (rows/2, cols/2) arrays by (r mod 2, c mod 2). The two colour classes of the chequerboard
-  ((r + c) mod 2) are two quarters each, and every neighbour of a quarter lies in the two
-  quarters of the other colour at the same or a shifted index, so each half-sweep touches only
-  the sites it updates (no masks, no work on the other colour).
+- **Quarter layout on grids with even sides** (with a field that is one number). Site (r, c)
+  is stored in one of four (rows/2, cols/2) arrays by (r mod 2, c mod 2). The two colour
+  classes of the chequerboard ((r + c) mod 2) are two quarters each, and every neighbour of a
+  quarter lies in the two quarters of the other colour at the same or a shifted index, so each
+  half-sweep touches only the sites it updates (no masks, no work on the other colour).
 
 The sweep order (colour 0 then colour 1 on a bipartite graph, colour by colour otherwise) and
 the noise-to-site assignment are those of :func:`zhat.families.lattice.sweeps.heat_bath_sweep`.
@@ -68,7 +68,7 @@ def _updater(coupling: Array, d: int, uniform: bool) -> Callable:
     def update(z: Array, n: Array, h: Array | None, table: Array | None) -> Array:
         """New spins of one class from its noise z and neighbour sums n."""
         if table is not None:
-            up = z < jnp.take(table, (n + d).astype(jnp.int32), mode="clip")
+            up = z < table[(n + d).astype(jnp.int32)]
         else:
             u = z if uniform else ndtr(z)
             up = u < jax.nn.sigmoid(2.0 * (h + coupling * n))
@@ -101,7 +101,7 @@ def spin_sweep(
         raise ValueError("side_signs needs a bipartite graph.")
     # a field per site compares uniforms: Φ is applied to the noise up front, in one pass
     # (inside the sweep XLA fuses it badly), and the sweep then sees uniforms
-    build = _quarter_sweep if _uses_quarters(nb) else _colour_sweep
+    build = _quarter_sweep if scalar and _uses_quarters(nb) else _colour_sweep
     plan = build(nb, h, coupling, side_signs, scalar, uniform or not scalar)
     if scalar or uniform:
         return plan
@@ -111,8 +111,12 @@ def spin_sweep(
 def gibbs_sweeps(nb: Neighbours, s: Array, h: Array, coupling: Array, noise: Array) -> Array:
     """``noise.shape[0]`` heat-bath sweeps from spins ``s`` (N,); noise standard normal (T, N)."""
     plan = spin_sweep(nb, h, coupling)
-    step = lambda q, z: (plan.sweep(q, z), None)  # noqa: E731
-    state, _ = jax.lax.scan(step, plan.to_state(s), plan.to_noise(noise))
+    if jnp.ndim(h) == 0:  # threshold tables: each row is split inside the loop (one pass)
+        step = lambda q, z: (plan.sweep(q, plan.to_noise(z)), None)  # noqa: E731
+        state, _ = jax.lax.scan(step, plan.to_state(s), noise)
+    else:  # Φ of the whole noise first: inside the loop XLA fuses it badly
+        step = lambda q, z: (plan.sweep(q, z), None)  # noqa: E731
+        state, _ = jax.lax.scan(step, plan.to_state(s), plan.to_noise(noise))
     return plan.from_state(state).astype(s.dtype)
 
 
@@ -146,6 +150,7 @@ def _colour_sweep(nb, h, coupling, side_signs, scalar, uniform) -> SpinSweep:
 
 # --- grids with even sides: four quarters -----------------------------------------------------
 def _quarter_sweep(nb, h, coupling, side_signs, scalar, uniform) -> SpinSweep:
+    assert scalar, "the quarter layout serves a field that is one number"
     rows, cols = nb.shape
     periodic = nb.boundary == "periodic"
 
@@ -177,17 +182,11 @@ def _quarter_sweep(nb, h, coupling, side_signs, scalar, uniform) -> SpinSweep:
         return jax.lax.slice_in_dim(jnp.pad(x, pad), 1, x.shape[axis] + 1, axis=axis)
 
     # quarters A = (even r, even c), B = (even, odd), C = (odd, even), D = (odd, odd);
-    # colour (r + c) mod 2: A and D are colour 0 (side 0), B and C colour 1
-    if scalar:
-        signs = (1.0, 1.0) if side_signs is None else (side_signs[0], side_signs[1])
-        tables = tuple(_thresholds(h * sign, coupling, 4, uniform) for sign in signs)
-        fields = (None, None, None, None)
-    else:
-        field = jnp.broadcast_to(h, (rows * cols,))
-        if side_signs is not None:
-            field = field * jnp.asarray(side_signs, h.dtype)[jnp.asarray(nb.sides)]
-        tables = (None, None)
-        fields = split(field)
+    # colour (r + c) mod 2: A and D are colour 0 (side 0), B and C colour 1. The field is one
+    # number (per side), so each colour has one threshold table.
+    signs = (1.0, 1.0) if side_signs is None else (side_signs[0], side_signs[1])
+    tables = tuple(_thresholds(h * sign, coupling, 4, uniform) for sign in signs)
+    fields = (None, None, None, None)
 
     update = _updater(coupling, 4, uniform)
 
