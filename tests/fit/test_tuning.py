@@ -157,7 +157,7 @@ def test_chain_inits_start_zhat_and_numpyro_chains(key):
         num_warmup=5,
         num_samples=5,
         num_chains=2,
-        chain_method="sequential",
+        chain_method="parallel",
         progress_bar=False,
     )
     mcmc.run(random.fold_in(key, 2), y, init_params=inits)
@@ -171,7 +171,7 @@ def test_chain_inits_start_zhat_and_numpyro_chains(key):
         num_warmup=5,
         num_samples=5,
         num_chains=2,
-        chain_method="sequential",
+        chain_method="parallel",
         progress_bar=False,
     )
     nuts.run(random.fold_in(key, 4), y, init_params=free)

@@ -58,6 +58,21 @@ def _latent(model_trace: dict) -> list[str]:
     ]
 
 
+def _site_layout(exposed: expose, args: tuple, kwargs: dict) -> dict[str, tuple]:
+    """(support, shape, is noise) of every latent site, from an abstract trace: the estimates
+    themselves are not computed."""
+    found: dict[str, tuple] = {}
+
+    def run() -> None:
+        model_trace = trace(seed(exposed, random.key(0))).get_trace(*args, **kwargs)
+        for name, site in model_trace.items():
+            if site["type"] == "sample" and not site["is_observed"]:
+                found[name] = (site["fn"].support, jnp.shape(site["value"]), is_noise_site(site))
+
+    jax.eval_shape(run)
+    return found
+
+
 def _check_point(point: Any, latent: list[str], noise: list[str]) -> None:
     if not isinstance(point, Mapping):
         raise TypeError(
@@ -99,29 +114,29 @@ def chain_inits(
         raise ValueError(f"num_chains must be a positive integer, got {num_chains!r}.")
     if not jitter >= 0:
         raise ValueError(f"jitter must be ≥ 0, got {jitter!r}.")
-    proto = trace(seed(exposed, random.key(0))).get_trace(*args, **kwargs)
-    noise = [n for n, site in proto.items() if is_noise_site(site)]
-    latent = _latent(proto)
+    sites = _site_layout(exposed, args, kwargs)
+    noise = [n for n, (_, _, is_noise) in sites.items() if is_noise]
+    latent = [n for n, (_, _, is_noise) in sites.items() if not is_noise]
     _check_point(point, latent, noise)
+    dtype = jnp.result_type(float)
 
     def one(key: Array) -> dict[str, Array]:
         out = {}
         for i, name in enumerate(latent + noise):
-            site, k = proto[name], random.fold_in(key, i)
+            support, shape, _ = sites[name]
+            k = random.fold_in(key, i)
             if name in noise:
-                out[name] = random.normal(k, jnp.shape(site["value"]))
+                out[name] = random.normal(k, shape, dtype)
                 continue
-            transform = biject_to(site["fn"].support)
-            value = jnp.broadcast_to(
-                jnp.asarray(point[name], jnp.result_type(float)), jnp.shape(site["value"])
-            )
+            transform = biject_to(support)
+            value = jnp.broadcast_to(jnp.asarray(point[name], dtype), shape)
             free = transform.inv(value)
             if not bool(jnp.all(jnp.isfinite(free))):
                 raise ValueError(
                     f"The point's value of '{name}' is outside the support of its prior "
-                    f"({site['fn'].support}); give a value inside it."
+                    f"({support}); give a value inside it."
                 )
-            free = free + jitter * random.normal(k, jnp.shape(free))
+            free = free + jitter * random.normal(k, jnp.shape(free), dtype)
             out[name] = free if unconstrained else transform(free)
         return out
 
