@@ -12,9 +12,10 @@ Defaults, chosen per model from its estimators when the sampler is initialised:
 - otherwise (e.g. auxiliary draws from a perfect sampler, piecewise constant): random-walk
   Metropolis on θ (one estimator evaluation per move, where slice sampling spends several) and
   an independence refresh of u. In ``benchmarks/lattice.py`` (8×8 Ising posterior, 2 × 2500
-  draws per configuration) this pair gave the most effective samples per second with the
-  annealed estimator (1.1× elliptical slice, 1.3× block refresh) and 0.83× elliptical slice
-  with the single auxiliary-variable estimator; see the README for the table.
+  draws per configuration) this pair gave the most effective samples per second with both
+  estimators (annealed: 1.2× elliptical slice, 1.4× block refresh; single auxiliary variable:
+  1.03× elliptical slice); in an earlier run it was 0.83× elliptical slice with the single
+  estimator. See the README for the table.
 
 Each block hands the log joint it has just computed to the other (adding its own Jacobian
 term) instead of evaluating the estimator again, so a sweep costs one estimator evaluation per
