@@ -48,6 +48,7 @@ from jax import lax, random
 from jax.scipy.special import logsumexp
 from jax.typing import ArrayLike
 
+from zhat.fit.quadrature import coarse_weights, concentrated_grid, rule_weights
 from zhat.model.unnormalized import Transition, UnnormalizedDistribution
 
 Array = jax.Array
@@ -285,40 +286,6 @@ def _summarise_weights(log_w: Array, log_z0: float) -> AnnealedLogZ:
 
 
 # --- path sampling --------------------------------------------------------------------------
-def rule_weights(grid: ArrayLike, rule: str = "simpson") -> np.ndarray:
-    """Quadrature weights of Simpson's rule (pairs of intervals, any spacing) or the trapezoid
-    rule on ``grid``; Simpson needs an even number of intervals."""
-    t = np.asarray(grid, dtype=float)
-    h = np.diff(t)
-    w = np.zeros_like(t)
-    if rule == "trapezoid":
-        w[:-1] += h / 2
-        w[1:] += h / 2
-        return w
-    if rule != "simpson":
-        raise ValueError(f"rule must be 'simpson' or 'trapezoid', got {rule!r}.")
-    if h.size % 2:
-        raise ValueError(
-            f"Simpson's rule needs an even number of grid intervals; the grid has {h.size}. "
-            "Add a point or use rule='trapezoid'."
-        )
-    h0, h1 = h[0::2], h[1::2]
-    s = (h0 + h1) / 6  # the quadratic through three points, integrated (any spacing)
-    w[0:-1:2] += s * (2 - h1 / h0)
-    w[1::2] += s * (h0 + h1) ** 2 / (h0 * h1)
-    w[2::2] += s * (2 - h0 / h1)
-    return w
-
-
-def _coarse_weights(t: np.ndarray, rule: str) -> np.ndarray | None:
-    intervals = t.size - 1
-    if intervals % (4 if rule == "simpson" else 2):
-        return None
-    w = np.zeros_like(t)
-    w[::2] = rule_weights(t[::2], rule)
-    return w
-
-
 def path_sampling_log_z(
     rng_key: Array,
     dist: UnnormalizedDistribution,
@@ -349,7 +316,7 @@ def path_sampling_log_z(
     log_z0 = _check_log_z(start_log_z)
     t = _schedule(grid, "grid")
     weights = rule_weights(t, rule)
-    coarse = _coarse_weights(t, rule)
+    coarse = coarse_weights(t, rule)
     chains = _positive_int(num_chains, "num_chains")
     if chains < 2:
         raise ValueError("path sampling needs num_chains ≥ 2 for its standard error.")
@@ -404,25 +371,6 @@ def path_sampling_log_z(
         means=means.mean(axis=0),
         mean_errors=means.std(axis=0, ddof=1) / math.sqrt(chains),
     )
-
-
-def concentrated_grid(
-    num_intervals: int, centre: float, width: float, share: float = 0.5
-) -> np.ndarray:
-    """A grid of [0, 1] with ``num_intervals`` intervals, a fraction ``share`` of its points
-    packed in a Gaussian bump of sd ``width`` around ``centre`` (e.g. where t reaches a
-    critical coupling) and the rest evenly spread."""
-    n = _positive_int(num_intervals, "num_intervals")
-    if not (0.0 <= share < 1.0) or width <= 0:
-        raise ValueError(f"need 0 ≤ share < 1 and width > 0; got share={share}, width={width}.")
-    fine = np.linspace(0.0, 1.0, 20001)
-    bump = np.exp(-0.5 * ((fine - centre) / width) ** 2)
-    bump_mass = np.trapezoid(bump, fine)
-    density = (1 - share) + share * bump / bump_mass
-    cdf = np.concatenate([[0.0], np.cumsum((density[1:] + density[:-1]) / 2 * np.diff(fine))])
-    grid = np.interp(np.linspace(0.0, cdf[-1], n + 1), cdf, fine)
-    grid[0], grid[-1] = 0.0, 1.0
-    return grid
 
 
 def log_likelihood(
