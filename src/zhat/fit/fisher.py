@@ -32,6 +32,7 @@ class FisherInformation(NamedTuple):
     standard_error: np.ndarray  # (d, d) Monte Carlo standard error of each entry
     mean: np.ndarray  # (d,) E_θ[∇ log g(x; θ)] (E_θ[s(x)] for an exponential family)
     mean_standard_error: np.ndarray  # (d,)
+    mean_covariance: np.ndarray  # (d, d) Monte Carlo covariance of ``mean``
     labels: tuple[str, ...]
     num_simulations: int
 
@@ -70,6 +71,7 @@ def fisher_information(
         standard_error=np.asarray(m.cov_se, np.float64),
         mean=np.asarray(m.mean, np.float64),
         mean_standard_error=np.sqrt(np.diag(np.asarray(m.mean_cov, np.float64))),
+        mean_covariance=np.asarray(m.mean_cov, np.float64),
         labels=problem.labels,
         num_simulations=chains * (1 + burn_in + draws * thin),
     )

@@ -151,5 +151,5 @@ def pseudo_likelihood(
         pseudo_log_likelihood=-float(f),
         gradient_norm=gnorm,
         steps=int(n),
-        converged=gnorm <= tol * (1 + abs(float(f))) * 10,
+        converged=gnorm <= tol * (1 + abs(float(f))),
     )
