@@ -72,7 +72,9 @@ def stochastic_approximation(
     :param optimizer: an Optax optimiser (it minimises −log L); default SGD with the step
         ``step_size / (1 + t/t_0)^0.6``, t_0 = steps/20.
     :param precondition: multiply the gradient by I(θ_0)⁻¹ (simulated Fisher information at the
-        start) before the optimiser (makes the default step size scale-free).
+        start) before the optimiser (makes the default step size scale-free; without it, give
+        an optimiser whose steps suit gradients of the size of the statistics, ~ the number of
+        sites).
     :param average_from: average the iterates from this fraction of the run on.
     :param final_draws: draws per chain at the averaged point for the final Newton step and the
         standard errors.
