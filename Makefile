@@ -23,6 +23,7 @@ test: $(STAMP)
 bench: $(STAMP)
 	$(BIN)/python benchmarks/latent_gaussian.py
 	$(BIN)/python benchmarks/lattice.py
+	$(BIN)/python benchmarks/fit.py
 
 clean:
 	rm -rf $(VENV) build src/*.egg-info .pytest_cache
