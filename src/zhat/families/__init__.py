@@ -1,5 +1,5 @@
 """Families with intractable normalizers, one sub-package each."""
 
-from zhat.families import lattice
+from zhat.families import lattice, network
 
-__all__ = ["lattice"]
+__all__ = ["lattice", "network"]
