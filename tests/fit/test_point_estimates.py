@@ -19,6 +19,7 @@ import pytest
 from scipy import optimize, special
 
 from tests.references import lattice_exact as ref
+from tests.references.logistic import logistic_fit
 from zhat import fit
 from zhat.families import lattice
 from zhat.model.unnormalized import unnormalized
@@ -63,30 +64,6 @@ def exact_mode(y, prior_sd=None):
         theta = theta - np.linalg.solve(curvature, negative(theta)[1])
     assert np.linalg.norm(negative(theta)[1]) < 1e-9
     return theta
-
-
-def logistic_fit(design, response):
-    """Maximum likelihood logistic regression (scipy) and its (XᵀWX)⁻¹."""
-
-    def negative(beta):
-        eta = design @ beta
-        return np.sum(np.logaddexp(0.0, eta) - response * eta)
-
-    def gradient(beta):
-        return design.T @ (special.expit(design @ beta) - response)
-
-    def information(beta):
-        p = special.expit(design @ beta)
-        return (design * (p * (1.0 - p))[:, None]).T @ design
-
-    res = optimize.minimize(
-        negative, np.zeros(design.shape[1]), jac=gradient, method="BFGS", options={"gtol": 1e-8}
-    )
-    beta = res.x
-    for _ in range(5):  # Newton polish (the likelihood is strictly concave, full-rank design)
-        beta = beta - np.linalg.solve(information(beta), gradient(beta))
-    assert np.linalg.norm(gradient(beta)) < 1e-9
-    return beta, np.linalg.inv(information(beta))
 
 
 def assert_within_mc_error(result, exact, what):

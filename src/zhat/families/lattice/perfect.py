@@ -97,11 +97,7 @@ def coupling_from_the_past(
             return jax.vmap(lambda q: plan.sweep(q, z))(pair)
 
         start = jax.vmap(plan.to_state)(jnp.stack([jnp.ones((n,), dtype), -jnp.ones((n,), dtype)]))
-        pair = lax.fori_loop(0, t, body, start)
-        top, bottom = (
-            plan.from_state(jax.tree.map(lambda a: a[0], pair)),
-            plan.from_state(jax.tree.map(lambda a: a[1], pair)),
-        )
+        top, bottom = jax.vmap(plan.from_state)(lax.fori_loop(0, t, body, start))
         return top, jnp.all(top == bottom), t
 
     def cond(carry):

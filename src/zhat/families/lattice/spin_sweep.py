@@ -101,8 +101,9 @@ def spin_sweep(
         raise ValueError("side_signs needs a bipartite graph.")
     # a field per site compares uniforms: Φ is applied to the noise up front, in one pass
     # (inside the sweep XLA fuses it badly), and the sweep then sees uniforms
-    build = _quarter_sweep if scalar and _uses_quarters(nb) else _colour_sweep
-    plan = build(nb, h, coupling, side_signs, scalar, uniform or not scalar)
+    if scalar and _uses_quarters(nb):
+        return _quarter_sweep(nb, h, coupling, side_signs, uniform)
+    plan = _colour_sweep(nb, h, coupling, side_signs, scalar, uniform or not scalar)
     if scalar or uniform:
         return plan
     return plan._replace(to_noise=lambda z: plan.to_noise(ndtr(z)))
@@ -149,8 +150,7 @@ def _colour_sweep(nb, h, coupling, side_signs, scalar, uniform) -> SpinSweep:
 
 
 # --- grids with even sides: four quarters -----------------------------------------------------
-def _quarter_sweep(nb, h, coupling, side_signs, scalar, uniform) -> SpinSweep:
-    assert scalar, "the quarter layout serves a field that is one number"
+def _quarter_sweep(nb, h, coupling, side_signs, uniform) -> SpinSweep:
     rows, cols = nb.shape
     periodic = nb.boundary == "periodic"
 
@@ -186,17 +186,16 @@ def _quarter_sweep(nb, h, coupling, side_signs, scalar, uniform) -> SpinSweep:
     # number (per side), so each colour has one threshold table.
     signs = (1.0, 1.0) if side_signs is None else (side_signs[0], side_signs[1])
     tables = tuple(_thresholds(h * sign, coupling, 4, uniform) for sign in signs)
-    fields = (None, None, None, None)
 
     update = _updater(coupling, 4, uniform)
 
     def sweep(q, z):
         a, b, c, e = q
         za, zb, zc, ze = z
-        a = update(za, prev(c, 0) + c + prev(b, 1) + b, fields[0], tables[0])
-        e = update(ze, b + next_(b, 0) + c + next_(c, 1), fields[3], tables[0])
-        b = update(zb, prev(e, 0) + e + a + next_(a, 1), fields[1], tables[1])
-        c = update(zc, a + next_(a, 0) + prev(e, 1) + e, fields[2], tables[1])
+        a = update(za, prev(c, 0) + c + prev(b, 1) + b, None, tables[0])
+        e = update(ze, b + next_(b, 0) + c + next_(c, 1), None, tables[0])
+        b = update(zb, prev(e, 0) + e + a + next_(a, 1), None, tables[1])
+        c = update(zc, a + next_(a, 0) + prev(e, 1) + e, None, tables[1])
         return a, b, c, e
 
     return SpinSweep(split, join, split, sweep)
