@@ -7,11 +7,19 @@ symmetric 0/1 matrix with an empty diagonal. Nodes keep the order of ``graph.nod
 
 from __future__ import annotations
 
-from typing import Any
+from typing import Any, NamedTuple
 
 import numpy as np
 
-__all__ = ["adjacency", "check_adjacency", "node_values"]
+__all__ = ["NetworkStructure", "adjacency", "check_adjacency", "node_values"]
+
+
+class NetworkStructure(NamedTuple):
+    """What a random graph family lives on: its number of nodes, statistics and directedness."""
+
+    nodes: int
+    statistics: tuple
+    directed: bool = False
 
 
 def _is_networkx(graph: Any) -> bool:

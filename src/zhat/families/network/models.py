@@ -10,20 +10,9 @@ Pseudo-likelihood (Strauss & Ikeda 1990, JASA 85(409)): each dyad given the rest
 regression on its change statistics, p(A_ij = 1 | rest) = σ(θ · δ_ij(A)), and the pseudo-log-
 likelihood is Σ_{i<j} [A_ij θ·δ_ij − log(1 + e^{θ·δ_ij})].
 
-Simulators (Metropolis–Hastings toggles, Snijders 2002, J. Social Structure 3(2); Morris,
-Handcock & Hunter 2008, J. Stat. Softw. 24(4)), each call a fixed number of toggles, every
-uniform the standard-normal noise through Φ:
-
-- ``tie_no_tie``: with probability 1/2 propose removing a uniformly chosen tie, otherwise adding
-  a tie at a uniformly chosen empty dyad. With E ties among M = n(n−1)/2 dyads the Hastings
-  ratio is e^{−θ·δ} E/(M − E + 1) for a removal and e^{θ·δ} (M − E)/(E + 1) for an addition; a
-  half with nothing to choose from (no ties, or a full graph) proposes staying put. Choosing the
-  tie scans the dyads: O(n²) per toggle. It moves well in sparse graphs.
-- ``toggle``: flip a uniformly chosen dyad, accepted with probability min(1, e^{±θ·δ}); O(n)
-  per toggle.
-
-Both leave p(· | θ) invariant. There is no perfect sampler, so estimators that draw auxiliary
-graphs from these simulators are APPROXIMATE.
+Simulators: the Metropolis–Hastings toggle samplers of :mod:`zhat.families.network.toggles`.
+There is no perfect sampler, so estimators that draw auxiliary graphs from these simulators
+are APPROXIMATE.
 """
 
 from __future__ import annotations
@@ -33,14 +22,13 @@ import functools
 import jax
 import jax.numpy as jnp
 import numpy as np
-from jax import lax
-from jax.scipy.special import ndtr
 from jax.typing import ArrayLike
 from numpyro.distributions import constraints
 
-from zhat.families.network.graph import adjacency, check_adjacency
+from zhat.families.network.graph import NetworkStructure, adjacency, check_adjacency
 from zhat.families.network.statistics import Statistic, change_statistics, statistics
-from zhat.model.unnormalized import Family, Transition
+from zhat.families.network.toggles import toggle_simulators
+from zhat.model.unnormalized import Family
 
 Array = jax.Array
 
@@ -77,53 +65,6 @@ def dyad_design(stats: tuple[Statistic, ...], a: ArrayLike) -> tuple[Array, Arra
     return design, a[rows, cols]
 
 
-def _toggle_steps(n: int, stats: tuple[Statistic, ...], toggles: int):
-    rows, cols = (jnp.asarray(v) for v in np.triu_indices(n, k=1))
-    m_dyads = rows.size
-
-    def flip(a, i, j, accept):
-        new = jnp.where(accept, 1.0 - a[i, j], a[i, j])
-        return a.at[i, j].set(new).at[j, i].set(new)
-
-    def tie_no_tie(theta, a, z):
-        u = ndtr(z)
-        upper = a[rows, cols]
-        ties = jnp.sum(upper)
-        remove = u[0] < 0.5
-        count = jnp.where(remove, ties, m_dyads - ties)
-        chosen = jnp.where(remove, upper, 1.0 - upper)
-        rank = jnp.clip(jnp.floor(u[1] * count), 0.0, jnp.maximum(count - 1.0, 0.0))
-        m = jnp.clip(jnp.searchsorted(jnp.cumsum(chosen), rank, side="right"), 0, m_dyads - 1)
-        i, j = rows[m], cols[m]
-        gain = jnp.dot(theta, change_statistics(stats, a, i, j))
-        log_ratio = jnp.where(  # −inf where the half has nothing to choose (never accepted)
-            remove,
-            -gain + jnp.log(ties) - jnp.log(m_dyads - ties + 1.0),
-            gain + jnp.log(m_dyads - ties) - jnp.log(ties + 1.0),
-        )
-        accept = (count > 0) & (jnp.log(u[2]) < log_ratio)
-        return flip(a, i, j, accept)
-
-    def toggle(theta, a, z):
-        u = ndtr(z)
-        m = jnp.clip(jnp.floor(u[0] * m_dyads).astype(jnp.int32), 0, m_dyads - 1)
-        i, j = rows[m], cols[m]
-        gain = jnp.dot(theta, change_statistics(stats, a, i, j))
-        log_ratio = jnp.where(a[i, j] > 0, -gain, gain)
-        return flip(a, i, j, jnp.log(u[1]) < log_ratio)
-
-    def transition(move, width):
-        def step(params, x, noise):
-            theta = jnp.asarray(params["coefficients"], jnp.result_type(float))
-            a = _matrix(x, n)
-            a = lax.scan(lambda a, z: (move(theta, a, z), None), a, noise)[0]
-            return a.reshape(jnp.shape(x)).astype(jnp.result_type(x))
-
-        return Transition(step, lambda x: (toggles, width))
-
-    return {"tie_no_tie": transition(tie_no_tie, 3), "toggle": transition(toggle, 2)}
-
-
 @functools.lru_cache(maxsize=64)
 def _network_family(n: int, stats: tuple[Statistic, ...], toggles: int) -> Family:
     def log_potential(x, coefficients):
@@ -149,13 +90,13 @@ def _network_family(n: int, stats: tuple[Statistic, ...], toggles: int) -> Famil
         support=_Graphs(),
         event_shape=(n, n),
         statistics=lambda x: statistics(stats, _matrix(x, n)),
-        simulators=_toggle_steps(n, stats, toggles),
+        simulators=toggle_simulators(n, stats, toggles),
         perfect_sampler=None,
         default_estimator=None,
         validate=validate,
         pseudo_log_likelihood=pseudo,
         free_parameters=("coefficients",),
-        structure=(n, stats),
+        structure=NetworkStructure(n, stats, directed=False),
     )
 
 
