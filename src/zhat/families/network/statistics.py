@@ -64,8 +64,10 @@ class Statistic:
             return f"{self.kind}({self.decay:g})"
         return self.kind
 
-    def total(self, a: Array) -> Array:
-        """s(A) for a (n, n) adjacency matrix."""
+    def total(self, a: Array, directed: bool = False) -> Array:
+        """s(A) for a (n, n) adjacency matrix (row i, column j: the tie i → j when directed)."""
+        if directed:
+            return self._directed_total(a)
         degree = jnp.sum(a, axis=1)
         if self.kind == "edges":
             return 0.5 * jnp.sum(a)
@@ -84,8 +86,11 @@ class Statistic:
         shared = a @ a  # weighted_shared_partners
         return 0.5 * scale * jnp.sum(a * (1.0 - r**shared))
 
-    def change(self, a: Array, i: Array, j: Array) -> Array:
-        """δ_ij for an adjacency matrix ``a`` whose dyad (i, j) is empty (see module doc)."""
+    def change(self, a: Array, i: Array, j: Array, directed: bool = False) -> Array:
+        """δ_ij for an adjacency matrix ``a`` whose dyad (i, j) is empty (see module doc); when
+        ``directed``, the change of adding the tie i → j to ``a`` with ``a[i, j] = 0``."""
+        if directed:
+            return self._directed_change(a, i, j)
         if self.kind == "edges":
             return jnp.ones((), a.dtype)
         if self.kind == "stars":
@@ -106,12 +111,29 @@ class Statistic:
         own = math.exp(self.decay) * (1.0 - r ** jnp.sum(both))
         return own + jnp.sum(both * (r ** (a[i] @ a) + r ** (a[j] @ a)))
 
+    def _directed_total(self, a: Array) -> Array:
+        if self.kind == "edges":
+            return jnp.sum(a)
+        raise _undirected_only(self)
+
+    def _directed_change(self, a: Array, i: Array, j: Array) -> Array:
+        if self.kind == "edges":
+            return jnp.ones((), a.dtype)
+        raise _undirected_only(self)
+
     def _values(self, dtype) -> Array:
         return jnp.asarray(np.asarray(self.values, dtype=float), dtype)
 
     def _same(self, dtype) -> Array:
         c = np.asarray(self.values)
         return jnp.asarray(c[:, None] == c[None, :], dtype)
+
+
+def _undirected_only(stat: Statistic) -> ValueError:
+    return ValueError(
+        f"the statistic '{stat.name}' is defined here for undirected graphs only; drop it from "
+        "a directed model or convert the graph with graph.to_undirected()."
+    )
 
 
 def _choose(d: Array, k: int) -> Array:
@@ -122,17 +144,20 @@ def _choose(d: Array, k: int) -> Array:
     return jnp.maximum(out, 0.0) if k else out
 
 
-def statistics(stats: tuple[Statistic, ...], a: ArrayLike) -> Array:
+def statistics(stats: tuple[Statistic, ...], a: ArrayLike, *, directed: bool = False) -> Array:
     """The vector s(A) of several statistics."""
     a = jnp.asarray(a, jnp.result_type(float))
-    return jnp.stack([s.total(a) for s in stats])
+    return jnp.stack([s.total(a, directed) for s in stats])
 
 
-def change_statistics(stats: tuple[Statistic, ...], a: ArrayLike, i: Array, j: Array) -> Array:
-    """The vector δ_ij(A) of several statistics (dyad (i, j) of ``a`` may hold a tie)."""
+def change_statistics(
+    stats: tuple[Statistic, ...], a: ArrayLike, i: Array, j: Array, *, directed: bool = False
+) -> Array:
+    """The vector δ_ij(A) of several statistics (dyad (i, j) of ``a`` may hold a tie; when
+    ``directed``, the change of the tie i → j alone)."""
     a = jnp.asarray(a, jnp.result_type(float))
-    a = a.at[i, j].set(0.0).at[j, i].set(0.0)
-    return jnp.stack([s.change(a, i, j) for s in stats])
+    a = a.at[i, j].set(0.0) if directed else a.at[i, j].set(0.0).at[j, i].set(0.0)
+    return jnp.stack([s.change(a, i, j, directed) for s in stats])
 
 
 # --- constructors -----------------------------------------------------------------------
