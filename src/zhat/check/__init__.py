@@ -9,6 +9,12 @@ from zhat.check.lattice_statistics import (
     join_counts,
     lattice_statistics,
 )
+from zhat.check.network_statistics import (
+    degree_counts,
+    distance_counts,
+    network_statistics,
+    shared_partner_counts,
+)
 from zhat.check.noise import NoiseReport, estimator_noise, log_estimates
 from zhat.check.plots import noise_figure, pair_figure, predictive_figure, trace_figure
 from zhat.check.predictive import PredictiveCheck, posterior_predictive, predictive_p_values
@@ -23,11 +29,14 @@ __all__ = [
     "StatisticSet",
     "StickingReport",
     "correlation_by_distance",
+    "degree_counts",
+    "distance_counts",
     "distance_pairs",
     "estimator_noise",
     "join_counts",
     "lattice_statistics",
     "log_estimates",
+    "network_statistics",
     "longest_runs",
     "noise_figure",
     "pair_figure",
@@ -35,6 +44,7 @@ __all__ = [
     "posterior_summary",
     "predictive_figure",
     "predictive_p_values",
+    "shared_partner_counts",
     "sticking",
     "store_checks",
     "stored_noise",

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import base64
 import io
+import re
 from collections.abc import Iterable, Mapping, Sequence
 from typing import TYPE_CHECKING, Any
 
@@ -22,6 +23,7 @@ if TYPE_CHECKING:
     from zhat.check.predictive import PredictiveCheck
 
 __all__ = [
+    "curve_bins",
     "figure_png",
     "noise_figure",
     "pair_figure",
@@ -141,22 +143,62 @@ def noise_figure(reports: Iterable[NoiseReport], log_estimates: Mapping[str, Any
     return fig
 
 
+_BIN = re.compile(r"^(?P<label>.*?)\s*(?P<bin>(?:≥ )?\S+)$")
+MAX_TICKS = 12
+
+
+def curve_bins(names: Sequence[str]) -> tuple[str, list[str], np.ndarray]:
+    """The x axis of a curve of statistics from their names: (axis label, bin labels, x).
+
+    A bin is the last word of a name, with a "≥ " before it ("y: correlation at distance 3" →
+    "3", "g: degree ≥ 9" → "≥ 9", "g: distance inf" → "inf"). A numeric bin sits at its value,
+    any other one step after the bin before it. The axis label is the rest of the first name
+    after the site ("site: ") and after a final "at " ("distance", "degree", "shared partners").
+    """
+    labels, positions, axis = [], [], ""
+    for k, name in enumerate(names):
+        match = _BIN.match(name)
+        label, text = (match["label"], match["bin"]) if match else ("", name)
+        if k == 0:
+            axis = label.split(": ", 1)[-1].rsplit(" at ", 1)[-1]
+        try:
+            x = float(text.removeprefix("≥ "))
+        except ValueError:
+            x = np.nan
+        after = positions[-1] + 1.0 if positions else 0.0
+        if not np.isfinite(x) or (positions and x <= positions[-1]):  # "inf", or out of order
+            x = after
+        labels.append(text)
+        positions.append(x)
+    return axis, labels, np.asarray(positions, dtype=float)
+
+
 def _curve_axes(ax, check: PredictiveCheck, title: str, first: int, last: int) -> None:
-    d = np.arange(1, last - first + 1)
+    axis, labels, x = curve_bins(check.names[first:last])
     reps = check.replicates[:, first:last]
     low, mid, high = np.nanquantile(reps, [0.05, 0.5, 0.95], axis=0)
-    ax.fill_between(d, low, high, color="tab:blue", alpha=0.25, label="replicates 5%–95%")
-    ax.plot(d, mid, color="tab:blue", lw=1, label="replicate median")
-    ax.plot(d, check.observed[first:last], "o-", color="black", label="observed")
-    ax.set_xticks(d)
-    ax.set_xlabel("distance")
+    ax.fill_between(x, low, high, color="tab:blue", alpha=0.25, label="replicates 5%–95%")
+    ax.plot(x, mid, color="tab:blue", lw=1, label="replicate median")
+    ax.plot(x, check.observed[first:last], "o-", color="black", ms=3, label="observed")
+    # at most MAX_TICKS labels, always the last ones ("≥ K", "inf")
+    every = -(-len(x) // MAX_TICKS)
+    shown = sorted(
+        {
+            *range(0, len(x), every),
+            len(x) - 1,
+            *(k for k, t in enumerate(labels) if not t[:1].isdigit()),
+        }
+    )
+    ax.set_xticks(x[shown], [labels[k] for k in shown])
+    ax.set_xlabel(axis)
     ax.set_title(title, fontsize="small")
     ax.legend(fontsize="x-small")
 
 
 def predictive_figure(check: PredictiveCheck, columns: int = 3) -> Figure:
-    """Histogram of each statistic's replicates with the observed value as a line; each
-    distance curve as a band of replicates against the observed curve."""
+    """Histogram of each statistic's replicates with the observed value as a line; each curve
+    (correlation by distance, degree, shared-partner and distance distributions) as a band of
+    replicates over its own bins (:func:`curve_bins`) against the observed curve."""
     in_curve = {k for _, a, b in check.curves for k in range(a, b)}
     singles: Sequence[int] = [k for k in range(len(check.names)) if k not in in_curve]
     panels = len(singles) + len(check.curves)

@@ -18,8 +18,9 @@ APPROXIMATE (a slowly mixing simulator leaves them too close to the data, which 
 towards ½), and the result says so.
 
 Statistics: the family's sufficient statistics when it declares them; on a lattice or map, join
-counts and correlation by distance (:mod:`zhat.check.lattice_statistics`); and any statistics
-the caller adds.
+counts and correlation by distance (:mod:`zhat.check.lattice_statistics`); on a network, the
+degree, edgewise shared-partner and geodesic-distance distributions with bins fixed from the
+observed graph (:mod:`zhat.check.network_statistics`); and any statistics the caller adds.
 """
 
 from __future__ import annotations
@@ -37,7 +38,9 @@ from jax import lax, random
 from numpyro.handlers import seed, substitute, trace
 
 from zhat.check.lattice_statistics import StatisticSet, lattice_statistics
+from zhat.check.network_statistics import network_statistics
 from zhat.families.lattice.graph import Neighbours
+from zhat.families.network.graph import NetworkStructure
 from zhat.model.expose import ESTIMATE_SUFFIX, NOISE_SUFFIX, expose
 from zhat.model.unnormalized import UnnormalizedDistribution
 
@@ -78,8 +81,9 @@ class PredictiveCheck:
     - **exact** - (M,) whether each replicate is an exact draw from the model.
     - **method** - how the replicates were drawn, one line per site.
     - **approximate** - True when replicates come from simulator runs, not exact draws.
-    - **curves** - ``(title, first, last)``: statistics ``first..last−1`` form a curve over
-      distance 1, 2, … (correlation by distance).
+    - **curves** - ``(title, first, last)``: statistics ``first..last−1`` form a curve
+      (correlation by distance; degree, shared-partner and distance distributions), its bins
+      the last word of each name ("… distance 3", "… degree ≥ 9", "… distance inf").
     - **num_draws** - number of posterior draws the replicates were thinned from.
     """
 
@@ -205,6 +209,8 @@ def _site_statistics(name, distribution, observed, extra, max_distance) -> Stati
         sets.append(
             lattice_statistics(family.structure, labels, site=name, max_distance=max_distance)
         )
+    if isinstance(family.structure, NetworkStructure):
+        sets.append(network_statistics(family.structure, observed, site=name))
     for label, fn in (extra or {}).items():
         shape = np.shape(fn(jnp.asarray(observed)))
         if int(np.prod(shape)) != 1:
@@ -216,7 +222,8 @@ def _site_statistics(name, distribution, observed, extra, max_distance) -> Stati
     if not sets:
         raise ValueError(
             f"Site '{name}' ({family.name}) has no statistics to check: the family declares "
-            "no sufficient statistics and no lattice structure. Pass statistics={'name': fn}."
+            "no sufficient statistics and no lattice or network structure. Pass "
+            "statistics={'name': fn}."
         )
     names, curves, offset = [], [], 0
     for s in sets:
@@ -311,7 +318,8 @@ def posterior_predictive(
     :param budget: largest number of sweeps of one perfect draw.
     :param sweeps: simulator steps per replicate when the family has no perfect sampler.
     :param simulator: which of the family's simulators; default its first.
-    :param max_distance: largest distance of the correlation-by-distance statistics.
+    :param max_distance: largest distance of the correlation-by-distance statistics of a
+        lattice (a network's distance bins come from the observed graph instead).
     :param statistics: extra statistics, name → ``fn(x)`` returning a scalar.
     """
     if isinstance(model, expose):
