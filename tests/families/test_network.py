@@ -255,8 +255,8 @@ def test_bad_adjacency_matrix(matrix, pattern):
 
 
 def test_bad_networkx_graphs():
-    with pytest.raises(ValueError, match=r"directed \(DiGraph\).*to_undirected"):
-        network.adjacency(nx.DiGraph([(0, 1)]))
+    with pytest.raises(ValueError, match=r"directed \(DiGraph\).*to_undirected.*directed=True"):
+        network.adjacency(nx.DiGraph([(0, 1)]), directed=False)
     with pytest.raises(ValueError, match=r"MultiGraph.*networkx\.Graph\(graph\)"):
         network.adjacency(nx.MultiGraph([(0, 1), (0, 1)]))
     with pytest.raises(ValueError, match=r"1 self-loop.*node 2.*remove_edges_from"):

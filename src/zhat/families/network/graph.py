@@ -1,8 +1,10 @@
-"""Undirected graphs as 0/1 adjacency matrices: conversion and checks with errors that name the fix.
+"""Graphs as 0/1 adjacency matrices: conversion and checks with errors that name the fix.
 
-A graph is given either as a networkx ``Graph`` (networkx is optional and imported only when
-such an object is passed; a tie is an edge, whatever attributes it carries) or as a square,
-symmetric 0/1 matrix with an empty diagonal. Nodes keep the order of ``graph.nodes``.
+A graph is given either as a networkx ``Graph`` or ``DiGraph`` (networkx is optional and
+imported only when such an object is passed; a tie is an edge, whatever attributes such as
+weights it carries) or as a square 0/1 matrix with an empty diagonal: symmetric for an
+undirected graph, any 0/1 pattern for a directed one, where entry [i, j] = 1 is the tie
+i → j. Nodes keep the order of ``graph.nodes``.
 """
 
 from __future__ import annotations
@@ -11,7 +13,7 @@ from typing import Any, NamedTuple
 
 import numpy as np
 
-__all__ = ["NetworkStructure", "adjacency", "check_adjacency", "node_values"]
+__all__ = ["NetworkStructure", "adjacency", "check_adjacency", "is_directed", "node_values"]
 
 
 class NetworkStructure(NamedTuple):
@@ -26,18 +28,38 @@ def _is_networkx(graph: Any) -> bool:
     return type(graph).__module__.startswith("networkx")
 
 
-def _from_networkx(graph: Any) -> np.ndarray:
+def is_directed(graph: Any, directed: bool | None = None) -> bool:
+    """Whether a model of ``graph`` is directed: ``directed`` when given, else as a networkx
+    graph says (``DiGraph``: directed), else undirected (a matrix or a number of nodes)."""
+    if directed is not None and not isinstance(directed, (bool, np.bool_)):
+        raise TypeError(
+            f"directed must be True, False or None (None: as the graph says); got {directed!r}."
+        )
+    if directed is not None:
+        return bool(directed)
+    return bool(_is_networkx(graph) and graph.is_directed())
+
+
+def _from_networkx(graph: Any, directed: bool) -> np.ndarray:
     import networkx as nx  # optional dependency: only needed for networkx input
 
-    if graph.is_directed():
+    kind = type(graph).__name__
+    if graph.is_directed() and not directed:
         raise ValueError(
-            f"the graph is directed ({type(graph).__name__}), but this model is for undirected "
-            "graphs. Convert it with graph.to_undirected() if ties have no direction."
+            f"the graph is directed ({kind}), but this model is for undirected graphs. "
+            "Convert it with graph.to_undirected() if ties have no direction, or pass "
+            "directed=True (or leave directed unset) to model the directions."
+        )
+    if directed and not graph.is_directed():
+        raise ValueError(
+            f"directed=True, but the graph is undirected ({kind}). Pass graph.to_directed() "
+            "if every tie runs both ways, or drop directed=True."
         )
     if graph.is_multigraph():
+        simple = "networkx.DiGraph(graph)" if directed else "networkx.Graph(graph)"
         raise ValueError(
-            f"the graph is a {type(graph).__name__} (repeated ties between a pair), but a tie "
-            "here is present or absent. Collapse it with networkx.Graph(graph)."
+            f"the graph is a {kind} (repeated ties between a pair), but a tie here is present "
+            f"or absent. Collapse it with {simple}."
         )
     loops = list(nx.selfloop_edges(graph))
     if loops:
@@ -49,11 +71,13 @@ def _from_networkx(graph: Any) -> np.ndarray:
     return nx.to_numpy_array(graph, nodelist=list(graph.nodes), weight=None, dtype=float)
 
 
-def check_adjacency(matrix: Any) -> np.ndarray:
-    """The matrix as a float array after checking it is a simple undirected graph.
+def check_adjacency(matrix: Any, directed: bool = False) -> np.ndarray:
+    """The matrix as a float array after checking it is a simple graph (entry [i, j] = 1: the
+    tie i → j when ``directed``).
 
     Raises ``ValueError`` for a non-square or non-2-D array, NaN, entries other than 0 and 1
-    (e.g. tie weights), a non-empty diagonal (self-loops) or an asymmetric matrix.
+    (e.g. tie weights), a non-empty diagonal (self-loops) or, unless ``directed``, an
+    asymmetric matrix.
     """
     arr = np.asarray(matrix)
     if arr.dtype == object or not (
@@ -88,24 +112,29 @@ def check_adjacency(matrix: Any) -> np.ndarray:
             "themselves. Set it to zero with numpy.fill_diagonal(matrix, 0)."
         )
     asym = np.argwhere(arr != arr.T)
-    if asym.size:
+    if asym.size and not directed:
         i, j = asym[0].tolist()
         raise ValueError(
             f"the adjacency matrix is not symmetric (entry [{i}, {j}] = {arr[i, j]:g} but "
             f"[{j}, {i}] = {arr[j, i]:g}); an undirected graph needs both. Use "
-            "numpy.maximum(matrix, matrix.T) if a tie in either direction counts."
+            "numpy.maximum(matrix, matrix.T) if a tie in either direction counts, or pass "
+            "directed=True if entry [i, j] is the tie i → j."
         )
     return arr
 
 
-def adjacency(graph: Any) -> np.ndarray:
+def adjacency(graph: Any, directed: bool | None = None) -> np.ndarray:
     """The (num_nodes, num_nodes) 0/1 float adjacency matrix of ``graph`` (checked).
 
-    :param graph: a networkx ``Graph`` or a square symmetric 0/1 matrix.
+    :param graph: a networkx ``Graph`` or ``DiGraph``, or a square 0/1 matrix (symmetric
+        unless directed; entry [i, j] = 1 is the tie i → j).
+    :param directed: whether the graph is directed; default as a networkx graph says, and
+        undirected for a matrix (then an asymmetric matrix is an error).
     """
+    directed = is_directed(graph, directed)
     if _is_networkx(graph):
-        return _from_networkx(graph)
-    return check_adjacency(graph)
+        return _from_networkx(graph, directed)
+    return check_adjacency(graph, directed)
 
 
 def node_values(graph: Any, attribute: str) -> list:

@@ -1,14 +1,16 @@
-"""Exponential-family random graph models of an undirected graph on a fixed set of n nodes.
+"""Exponential-family random graph models of an undirected or directed graph on n nodes.
 
-    p(A | θ) = exp(θ · s(A)) / Z(θ),   Z(θ) = Σ over the 2^{n(n−1)/2} graphs of exp(θ · s(A)),
+    p(A | θ) = exp(θ · s(A)) / Z(θ),   Z(θ) = Σ over the 2^M graphs of exp(θ · s(A)),
 
 with s(A) a vector of graph statistics (:mod:`zhat.families.network.statistics`; Frank & Strauss
-1986, JASA 81(395); Wasserman & Pattison 1996, Psychometrika 61(3)). Z is intractable beyond a
-handful of nodes.
+1986, JASA 81(395); Wasserman & Pattison 1996, Psychometrika 61(3)) and M the number of dyads:
+the n(n−1)/2 pairs i < j of an undirected graph, the n(n−1) ordered pairs i ≠ j of a directed
+one (A_ij = 1: the tie i → j). Z is intractable beyond a handful of nodes.
 
 Pseudo-likelihood (Strauss & Ikeda 1990, JASA 85(409)): each dyad given the rest is a logistic
 regression on its change statistics, p(A_ij = 1 | rest) = σ(θ · δ_ij(A)), and the pseudo-log-
-likelihood is Σ_{i<j} [A_ij θ·δ_ij − log(1 + e^{θ·δ_ij})].
+likelihood is Σ_dyads [A_ij θ·δ_ij − log(1 + e^{θ·δ_ij})], over i < j (undirected) or all
+i ≠ j (directed: each tie i → j given everything else, the tie j → i included).
 
 Simulators: the Metropolis–Hastings toggle samplers of :mod:`zhat.families.network.toggles`.
 There is no perfect sampler, so estimators that draw auxiliary graphs from these simulators
@@ -25,14 +27,19 @@ import numpy as np
 from jax.typing import ArrayLike
 from numpyro.distributions import constraints
 
-from zhat.families.network.graph import NetworkStructure, adjacency, check_adjacency
+from zhat.families.network.graph import (
+    NetworkStructure,
+    adjacency,
+    check_adjacency,
+    is_directed,
+)
 from zhat.families.network.statistics import Statistic, change_statistics, statistics
 from zhat.families.network.toggles import toggle_simulators
 from zhat.model.unnormalized import Family
 
 Array = jax.Array
 
-__all__ = ["dyad_design", "model"]
+__all__ = ["dyad_design", "dyads", "model"]
 
 
 class _Graphs(constraints.Constraint):
@@ -56,27 +63,52 @@ def _matrix(x: ArrayLike, n: int) -> Array:
     return jnp.asarray(x).reshape(n, n).astype(jnp.result_type(float))
 
 
-def dyad_design(stats: tuple[Statistic, ...], a: ArrayLike) -> tuple[Array, Array]:
-    """The pseudo-likelihood regression: (M, p) change statistics of every dyad i < j (row-major
-    over the upper triangle) and the (M,) responses A_ij."""
+def dyads(n: int, directed: bool = False) -> tuple[np.ndarray, np.ndarray]:
+    """The (rows, cols) of the M dyads of a graph on n nodes, row-major: i < j (undirected) or
+    every ordered pair i ≠ j (directed)."""
+    if directed:
+        return np.nonzero(~np.eye(n, dtype=bool))
+    return np.triu_indices(n, k=1)
+
+
+def dyad_design(
+    stats: tuple[Statistic, ...], a: ArrayLike, *, directed: bool = False
+) -> tuple[Array, Array]:
+    """The pseudo-likelihood regression: (M, p) change statistics of every dyad (in the order
+    of :func:`dyads`) and the (M,) responses A_ij."""
     a = jnp.asarray(a, jnp.result_type(float))
-    rows, cols = np.triu_indices(a.shape[0], k=1)
-    design = jax.vmap(lambda i, j: change_statistics(stats, a, i, j))(rows, cols)
+    rows, cols = dyads(a.shape[0], directed)
+    design = jax.vmap(lambda i, j: change_statistics(stats, a, i, j, directed=directed))(rows, cols)
     return design, a[rows, cols]
 
 
+def _simulators(n: int, stats: tuple[Statistic, ...], toggles: int, directed: bool) -> dict:
+    """The toggle samplers; a directed model gets none while the samplers cannot toggle
+    single directed ties (then estimators that need draws say no simulator is available)."""
+    if not directed:
+        return toggle_simulators(n, stats, toggles)
+    try:
+        return toggle_simulators(n, stats, toggles, directed=True)
+    except TypeError as err:  # a toggles module without the `directed` keyword
+        if "directed" not in str(err):
+            raise
+        return {}
+
+
 @functools.lru_cache(maxsize=64)
-def _network_family(n: int, stats: tuple[Statistic, ...], toggles: int) -> Family:
+def _network_family(
+    n: int, stats: tuple[Statistic, ...], toggles: int, directed: bool = False
+) -> Family:
     def log_potential(x, coefficients):
-        return jnp.dot(coefficients, statistics(stats, _matrix(x, n)))
+        return jnp.dot(coefficients, statistics(stats, _matrix(x, n), directed=directed))
 
     def pseudo(x, coefficients):
-        design, response = dyad_design(stats, _matrix(x, n))
+        design, response = dyad_design(stats, _matrix(x, n), directed=directed)
         eta = design @ coefficients
         return jnp.sum(response * eta - jnp.logaddexp(0.0, eta))
 
     def validate(x):
-        arr = check_adjacency(x)
+        arr = check_adjacency(x, directed)
         if arr.shape != (n, n):
             raise ValueError(
                 f"the observed graph has {arr.shape[0]} nodes, but the model was built for {n}. "
@@ -85,18 +117,18 @@ def _network_family(n: int, stats: tuple[Statistic, ...], toggles: int) -> Famil
 
     names = ", ".join(s.name for s in stats)
     return Family(
-        name=f"random graph ({names})",
+        name=f"random graph, {'directed' if directed else 'undirected'} ({names})",
         log_potential=log_potential,
         support=_Graphs(),
         event_shape=(n, n),
-        statistics=lambda x: statistics(stats, _matrix(x, n)),
-        simulators=toggle_simulators(n, stats, toggles),
+        statistics=lambda x: statistics(stats, _matrix(x, n), directed=directed),
+        simulators=_simulators(n, stats, toggles, directed),
         perfect_sampler=None,
         default_estimator=None,
         validate=validate,
         pseudo_log_likelihood=pseudo,
         free_parameters=("coefficients",),
-        structure=NetworkStructure(n, stats, directed=False),
+        structure=NetworkStructure(n, stats, directed=directed),
     )
 
 
@@ -106,15 +138,20 @@ def model(
     coefficients: ArrayLike | None = None,
     *,
     toggles: int | None = None,
+    directed: bool | None = None,
 ):
     """A random graph distribution log g(A; θ) = θ · s(A) on the nodes of ``graph``.
 
-    :param graph: the number of nodes, a networkx ``Graph`` or a 0/1 adjacency matrix (only
-        its number of nodes is used; pass the observed graph as ``obs=network.adjacency(g)``).
+    :param graph: the number of nodes, a networkx ``Graph`` / ``DiGraph`` or a 0/1 adjacency
+        matrix (only its number of nodes is used; pass the observed graph as
+        ``obs=network.adjacency(g)``).
     :param statistics: the statistics s, e.g. ``[network.edges(), network.triangles()]``.
     :param coefficients: θ, one per statistic; default zeros (held fixed by reference fits).
-    :param toggles: Metropolis toggles per simulator call; default n(n−1)/2, one per dyad.
+    :param toggles: Metropolis toggles per simulator call; default M, one per dyad.
+    :param directed: whether ties have a direction (entry [i, j]: the tie i → j); default as a
+        networkx graph says, and undirected for a matrix or a number of nodes.
     """
+    directed = is_directed(graph, directed)
     if isinstance(graph, (int, np.integer)) and not isinstance(graph, bool):
         n = int(graph)
     elif isinstance(graph, (bool, float, str)):
@@ -123,7 +160,7 @@ def model(
             f"{graph!r}."
         )
     else:
-        n = adjacency(graph).shape[0]
+        n = adjacency(graph, directed).shape[0]
     if n < 2:
         raise ValueError(f"a random graph model needs at least 2 nodes; got {n}.")
     stats = tuple(statistics) if isinstance(statistics, (list, tuple)) else (statistics,)
@@ -138,12 +175,13 @@ def model(
             "coefficients would not be identified)."
         )
     for s in stats:
+        s.check(directed)
         if s.values and len(s.values) != n:
             raise ValueError(
                 f"the statistic '{s.name}' has {len(s.values)} node values but the graph has "
                 f"{n} nodes; give one value per node, in node order."
             )
-    toggles = n * (n - 1) // 2 if toggles is None else toggles
+    toggles = len(dyads(n, directed)[0]) if toggles is None else toggles
     if isinstance(toggles, bool) or not isinstance(toggles, (int, np.integer)) or toggles < 1:
         raise ValueError(f"toggles must be a positive whole number; got {toggles!r}.")
     if coefficients is None:
@@ -155,4 +193,4 @@ def model(
             f"coefficients must have shape ({len(stats)},), one per statistic "
             f"{[s.name for s in stats]}; got shape {jnp.shape(coefficients)}."
         )
-    return _network_family(n, stats, int(toggles))(coefficients=coefficients)
+    return _network_family(n, stats, int(toggles), directed)(coefficients=coefficients)
