@@ -47,6 +47,8 @@ def every_statistic(n):
         network.same_group(groups),
         network.weighted_degrees(0.7),
         network.weighted_shared_partners(0.4),
+        network.difference(x**2),
+        network.weighted_dyad_partners(0.6),
     )
 
 
@@ -73,7 +75,7 @@ def test_change_statistics_equal_differences_of_recomputation(key):
 def test_statistics_match_counts_from_networkx(key):
     """Each total against an independent count made with networkx (degrees, triangles, common
     neighbours; the weighted forms as sums over the degree and shared-partner distributions,
-    Hunter 2007, J. Stat. Softw. 24(3), eqs. 26 and 30)."""
+    Hunter 2007, J. Stat. Softw. 24(3), eqs. 26, 30 and 31, the dyadwise form over every pair)."""
     n = 11
     a = np.asarray(random_graph(key, n, 0.45))
     g = nx.from_numpy_array(a)
@@ -81,9 +83,12 @@ def test_statistics_match_counts_from_networkx(key):
     degree = np.array([g.degree(v) for v in range(n)])
     x, groups = np.asarray(stats[4].values), np.arange(n) % 3
     shared = [len(list(nx.common_neighbors(g, u, v))) for u, v in g.edges]
-    r_deg, r_esp = 1 - math.exp(-0.7), 1 - math.exp(-0.4)
+    every_pair = itertools.combinations(range(n), 2)
+    dyad_shared = [len(list(nx.common_neighbors(g, u, v))) for u, v in every_pair]
+    r_deg, r_esp, r_dsp = 1 - math.exp(-0.7), 1 - math.exp(-0.4), 1 - math.exp(-0.6)
     degree_counts = np.bincount(degree, minlength=n)
     esp_counts = np.bincount(shared, minlength=n)
+    dsp_counts = np.bincount(dyad_shared, minlength=n)
     expected = [
         g.number_of_edges(),
         sum(math.comb(int(d), 2) for d in degree),
@@ -93,6 +98,8 @@ def test_statistics_match_counts_from_networkx(key):
         sum(groups[u] == groups[v] for u, v in g.edges),
         math.exp(0.7) * sum((1 - r_deg**k) * degree_counts[k] for k in range(1, n)),
         math.exp(0.4) * sum((1 - r_esp**k) * esp_counts[k] for k in range(1, n)),
+        sum(abs(x[u] ** 2 - x[v] ** 2) for u, v in g.edges),
+        math.exp(0.6) * sum((1 - r_dsp**k) * dsp_counts[k] for k in range(1, n)),
     ]
     np.testing.assert_allclose(network.statistics(stats, a), expected, rtol=1e-10)
 
@@ -285,6 +292,16 @@ def test_bad_model_arguments():
         network.covariate(["a", "b"])
     with pytest.raises(ValueError, match=r"must be finite.*nodes \[1\]"):
         network.covariate([0.0, np.inf])
+    with pytest.raises(ValueError, match=r"difference\(values\) needs one number per node"):
+        network.difference(np.zeros((2, 2)))
+    with pytest.raises(ValueError, match=r"difference values must be finite.*nodes \[0\]"):
+        network.difference([np.nan, 1.0])
+    with pytest.raises(ValueError, match=r"weighted_dyad_partners\(decay\) needs a decay > 0"):
+        network.weighted_dyad_partners(0.0)
+    with pytest.raises(ValueError, match=r"stars\(direction=...\) must be 'out' or 'in'"):
+        network.stars(2, direction="up")
+    with pytest.raises(ValueError, match=r"covariate\(role=...\) must be 'sender' or 'receiver'"):
+        network.covariate([1.0, 2.0], role="middle")
     with pytest.raises(ValueError, match=r"one label per node \(1-D\)"):
         network.same_group(np.zeros((2, 2)))
     with pytest.raises(ValueError, match=r"'covariate' has 3 node values but the graph has 4"):
@@ -301,3 +318,19 @@ def test_bad_model_arguments():
         network.model(1, [network.edges()])
     with pytest.raises(ValueError, match=r"toggles must be a positive whole number"):
         network.model(4, [network.edges()], toggles=0)
+    with pytest.raises(TypeError, match=r"directed must be True, False or None"):
+        network.model(4, [network.edges()], directed="yes")
+
+
+def test_directed_only_terms_are_refused_on_undirected_models():
+    """Mutual ties, out-/in-stars and sender/receiver covariates need a direction."""
+    with pytest.raises(ValueError, match=r"'mutual'.*only in directed graphs.*directed=True"):
+        network.model(4, [network.edges(), network.mutual()])
+    with pytest.raises(ValueError, match=r"'out_stars2' has direction='out'.*directed=True"):
+        network.model(4, [network.stars(2, direction="out")])
+    with pytest.raises(ValueError, match=r"'weighted_in_degrees\(0.5\)' has direction='in'"):
+        network.model(4, [network.weighted_degrees(0.5, direction="in")])
+    with pytest.raises(ValueError, match=r"'covariate_sender' has role='sender'.*drop role"):
+        network.model(4, [network.covariate(np.arange(4), role="sender")])
+    with pytest.raises(ValueError, match=r"'mutual'.*only in directed graphs"):
+        network.statistics((network.mutual(),), np.zeros((3, 3)))
