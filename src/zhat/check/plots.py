@@ -144,7 +144,7 @@ def noise_figure(reports: Iterable[NoiseReport], log_estimates: Mapping[str, Any
 
 
 _BIN = re.compile(r"^(?P<label>.*?)\s*(?P<bin>(?:≥ )?\S+)$")
-MAX_TICKS = 12
+MAX_TICKS = 8
 
 
 def curve_bins(names: Sequence[str]) -> tuple[str, list[str], np.ndarray]:
@@ -173,6 +173,17 @@ def curve_bins(names: Sequence[str]) -> tuple[str, list[str], np.ndarray]:
     return axis, labels, np.asarray(positions, dtype=float)
 
 
+def _thinned(labels: Sequence[str]) -> list[int]:
+    """About MAX_TICKS evenly spaced tick positions, always keeping the first and last bins and
+    the bins that are not plain numbers ("≥ K", "inf"); picked from the end backwards."""
+    every = -(-len(labels) // MAX_TICKS)
+    kept = {0, len(labels) - 1, *(k for k, t in enumerate(labels) if not t[:1].isdigit())}
+    for k in range(len(labels) - 1, -1, -1):
+        if all(abs(k - j) >= every for j in kept):
+            kept.add(k)
+    return sorted(kept)
+
+
 def _curve_axes(ax, check: PredictiveCheck, title: str, first: int, last: int) -> None:
     axis, labels, x = curve_bins(check.names[first:last])
     reps = check.replicates[:, first:last]
@@ -180,16 +191,8 @@ def _curve_axes(ax, check: PredictiveCheck, title: str, first: int, last: int) -
     ax.fill_between(x, low, high, color="tab:blue", alpha=0.25, label="replicates 5%–95%")
     ax.plot(x, mid, color="tab:blue", lw=1, label="replicate median")
     ax.plot(x, check.observed[first:last], "o-", color="black", ms=3, label="observed")
-    # at most MAX_TICKS labels, always the last ones ("≥ K", "inf")
-    every = -(-len(x) // MAX_TICKS)
-    shown = sorted(
-        {
-            *range(0, len(x), every),
-            len(x) - 1,
-            *(k for k, t in enumerate(labels) if not t[:1].isdigit()),
-        }
-    )
-    ax.set_xticks(x[shown], [labels[k] for k in shown])
+    ticks = _thinned(labels)
+    ax.set_xticks(x[ticks], [labels[k] for k in ticks], fontsize="small")
     ax.set_xlabel(axis)
     ax.set_title(title, fontsize="small")
     ax.legend(fontsize="x-small")
