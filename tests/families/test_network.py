@@ -75,7 +75,8 @@ def test_change_statistics_equal_differences_of_recomputation(key):
 def test_statistics_match_counts_from_networkx(key):
     """Each total against an independent count made with networkx (degrees, triangles, common
     neighbours; the weighted forms as sums over the degree and shared-partner distributions,
-    Hunter 2007, J. Stat. Softw. 24(3), eqs. 26, 30 and 31, the dyadwise form over every pair)."""
+    Hunter 2007, J. Stat. Softw. 24(3), eqs. 26 and 30; the dyadwise form likewise over every
+    pair, tied or not)."""
     n = 11
     a = np.asarray(random_graph(key, n, 0.45))
     g = nx.from_numpy_array(a)

@@ -76,7 +76,11 @@ def dyad_design(
 ) -> tuple[Array, Array]:
     """The pseudo-likelihood regression: (M, p) change statistics of every dyad (in the order
     of :func:`dyads`) and the (M,) responses A_ij."""
-    a = jnp.asarray(a, jnp.result_type(float))
+    return _dyad_design(tuple(stats), jnp.asarray(a, jnp.result_type(float)), directed)
+
+
+@functools.partial(jax.jit, static_argnums=(0, 2))
+def _dyad_design(stats: tuple[Statistic, ...], a: Array, directed: bool) -> tuple[Array, Array]:
     rows, cols = dyads(a.shape[0], directed)
     design = jax.vmap(lambda i, j: change_statistics(stats, a, i, j, directed=directed))(rows, cols)
     return design, a[rows, cols]
