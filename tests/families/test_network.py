@@ -319,6 +319,8 @@ def test_bad_model_arguments():
         network.model(1, [network.edges()])
     with pytest.raises(ValueError, match=r"toggles must be a positive whole number"):
         network.model(4, [network.edges()], toggles=0)
+    with pytest.raises(ValueError, match=r"unknown statistic kind 'cycles'.*network\.edges\(\)"):
+        network.model(4, [network.Statistic("cycles")])
     with pytest.raises(TypeError, match=r"directed must be True, False or None"):
         network.model(4, [network.edges()], directed="yes")
 

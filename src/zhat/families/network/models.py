@@ -147,13 +147,19 @@ def model(
     """A random graph distribution log g(A; θ) = θ · s(A) on the nodes of ``graph``.
 
     :param graph: the number of nodes, a networkx ``Graph`` / ``DiGraph`` or a 0/1 adjacency
-        matrix (only its number of nodes is used; pass the observed graph as
-        ``obs=network.adjacency(g)``).
+        matrix (only its number of nodes and, for networkx, its directedness are used; pass
+        the observed graph as ``obs=network.adjacency(g)``).
     :param statistics: the statistics s, e.g. ``[network.edges(), network.triangles()]``.
     :param coefficients: θ, one per statistic; default zeros (held fixed by reference fits).
     :param toggles: Metropolis toggles per simulator call; default M, one per dyad.
     :param directed: whether ties have a direction (entry [i, j]: the tie i → j); default as a
         networkx graph says, and undirected for a matrix or a number of nodes.
+
+    A directed model of who asks whom for advice among the staff of an invented workshop, with
+    reciprocity, transitivity and seniority x raising the ties a member sends::
+
+        network.model(advice, [network.edges(), network.mutual(), network.triangles(),
+                               network.covariate(x, role="sender")], theta, directed=True)
     """
     directed = is_directed(graph, directed)
     if isinstance(graph, (int, np.integer)) and not isinstance(graph, bool):

@@ -43,10 +43,11 @@ Directed (sums over ordered pairs i ≠ j)::
 
 Sources: k-stars and triangles, Frank & Strauss 1986 (JASA 81(395)); mutuality, Holland &
 Leinhardt 1981 (JASA 76(373)); transitive triples and out-/in-stars, Wasserman & Pattison 1996
-(Psychometrika 61(3)); the covariate, same-group and absolute-difference terms are the nodal
-main effect, homophily and absolute-difference homophily of Morris, Handcock & Hunter 2008
-(J. Stat. Softw. 24(4)); the weighted forms are the geometrically weighted degree, edgewise and
-dyadwise shared partner statistics (Snijders, Pattison, Robins & Handcock 2006, Sociol.
+(Psychometrika 61(3)); the covariate, same-group and absolute-difference terms are the usual
+nodal main effect, homophily and absolute-difference homophily (common practice; see e.g.
+Robins, Pattison, Kalish & Lusher 2007, Social Networks 29(2), reference from memory); the
+weighted forms are the geometrically weighted degree, edgewise and dyadwise shared partner
+statistics (Snijders, Pattison, Robins & Handcock 2006, Sociol.
 Methodol. 36; Hunter & Handcock 2006, JCGS 15(3)), with the outgoing two-path (i → k → j)
 partners of Hunter 2007 (Social Networks 29(2)) for directed graphs. The weighted changes use
 e^α (r^s − r^{s+1}) = r^s: one more partner adds r^s.
@@ -114,6 +115,11 @@ class Statistic:
 
     def check(self, directed: bool) -> None:
         """Raise ``ValueError`` if the statistic has no form for this kind of graph."""
+        if self.kind not in _TOTALS:
+            raise ValueError(
+                f"unknown statistic kind {self.kind!r}; build statistics with the functions of "
+                f"zhat.families.network, e.g. network.edges() (kinds: {sorted(_TOTALS)})."
+            )
         if not directed and self.kind == "mutual":
             raise ValueError(
                 "the statistic 'mutual' counts ties in both directions, which exist only in "
