@@ -16,6 +16,7 @@ import jax.numpy as jnp
 import numpy as np
 from jax.flatten_util import ravel_pytree
 
+from zhat.model.degeneracy import simulate_and_check
 from zhat.model.unnormalized import UnnormalizedDistribution
 
 Array = jax.Array
@@ -112,7 +113,12 @@ class ReferenceCache:
         self.reference = reference
         self._fits: dict[tuple[int, bytes], dict[str, Array]] = {}
 
-    def __call__(self, dist: UnnormalizedDistribution, data: Array) -> dict[str, Array]:
+    def __call__(
+        self, dist: UnnormalizedDistribution, data: Array, simulator: str | None = None
+    ) -> dict[str, Array]:
+        """θ̂ for ``dist`` and ``data``; when the estimator draws from ``simulator`` (not a
+        perfect sampler), a new pseudo-likelihood fit is also checked for degeneracy: a few
+        simulator chains at θ̂ must not collapse (:mod:`zhat.model.degeneracy`)."""
         if isinstance(self.reference, Mapping):
             unknown = sorted(set(self.reference) - set(dist.params))
             if unknown:
@@ -131,6 +137,14 @@ class ReferenceCache:
         key = (id(dist.family), np.asarray(data).tobytes(), tuple(sorted(held.items())))
         if key not in self._fits:
             fit = maximum_pseudo_likelihood(dist, data)
+            if simulator is not None:
+                with jax.ensure_compile_time_eval():
+                    simulate_and_check(
+                        dist.with_params(**{k: fit[k] for k in fitted}),
+                        data,
+                        "the estimator's reference point (maximum pseudo-likelihood)",
+                        simulator=simulator,
+                    )
             self._fits[key] = {k: fit[k] for k in fitted}
         return {**dist.params, **self._fits[key]}
 

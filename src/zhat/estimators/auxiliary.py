@@ -163,7 +163,7 @@ def _auxiliary(
         dist = _require_family(factor, what)
         first, first_shape, moves, move_shape = layout(dist, data)
         theta = dist.params
-        ref = references(dist, data)
+        ref = references(dist, data, None if draws.exact else draws.sampler)
         names = dist.family.free_parameters
         log_g = lambda params, x: dist.family.log_potential(x, **params)  # noqa: E731
 

@@ -18,6 +18,7 @@ import jax.numpy as jnp
 import numpy as np
 from jax.flatten_util import ravel_pytree
 
+from zhat.model.degeneracy import check_collapse
 from zhat.model.unnormalized import Transition, UnnormalizedDistribution
 
 Array = jax.Array
@@ -145,6 +146,12 @@ def setup(
     if log_prior is not None and not bool(jnp.isfinite(problem.prior_value(v0))):
         raise ValueError(f"log_prior is not finite at the start {problem.label(v0)}.")
     return problem._replace(linear=bool(jnp.all(hess == 0)))
+
+
+def check_degenerate(problem: Problem, v: Array, states: Array, where: str) -> None:
+    """Stop when the chain states simulated at v collapsed (see :mod:`zhat.model.degeneracy`)."""
+    dist = problem.dist.with_params(**problem.unravel(v))
+    check_collapse(dist, problem.data, states, where)
 
 
 def simulator(dist: UnnormalizedDistribution, name: str | None) -> Transition:

@@ -29,7 +29,7 @@ import optax
 from jax.scipy.special import logsumexp
 
 from zhat.fit import _chains
-from zhat.fit._problem import LogPriorFn, Problem, setup, simulator
+from zhat.fit._problem import LogPriorFn, Problem, check_degenerate, setup, simulator
 from zhat.fit.fisher import _check_counts
 from zhat.fit.result import LikelihoodFit, build
 from zhat.fit.stochastic import initial_point, stochastic_approximation
@@ -79,6 +79,7 @@ def monte_carlo_likelihood(
         k_burn, k_run = jax.random.split(jax.random.fold_in(k_rounds, r))
         states = runner.burn(k_burn, psi, states, burn_in)
         states, sim = runner.run(k_run, psi, states, draws, thin)
+        check_degenerate(problem, psi, states, f"the simulation point of round {r + 1}")
         used += chains * (burn_in + draws * thin)
         surrogate = _Surrogate(problem, psi, sim)
         theta, settled = surrogate.maximise(min_ess)

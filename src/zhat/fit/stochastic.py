@@ -32,7 +32,7 @@ import numpy as np
 import optax
 
 from zhat.fit import _chains
-from zhat.fit._problem import LogPriorFn, Problem, setup, simulator
+from zhat.fit._problem import LogPriorFn, Problem, check_degenerate, setup, simulator
 from zhat.fit.fisher import _check_counts
 from zhat.fit.pseudo_likelihood import pseudo_likelihood
 from zhat.fit.result import LikelihoodFit, build, invert_information
@@ -95,6 +95,7 @@ def stochastic_approximation(
     if precondition:
         pilot = final_draws  # the same compiled run as the final draws
         states, pilot_draws = runner.run(k_pilot, v0, states, pilot, 1)
+        check_degenerate(problem, v0, states, "the start")
         # expected information Cov[∇ log g] (+ prior curvature): positive definite even where
         # the observed information of a non-linear family is not (Fisher scoring)
         expected = _chains.moments(pilot_draws.scores).cov - problem.prior_hessian(v0)
@@ -115,6 +116,7 @@ def stochastic_approximation(
             "The stochastic approximation diverged (non-finite parameters); lower `step_size` "
             "or give a `start` closer to the estimate."
         )
+    check_degenerate(problem, path[-1], states, "the last stochastic-approximation step")
     averaged = jnp.mean(path[int(average_from * steps) :], axis=0)
     _, final = runner.run(k_final, averaged, states, final_draws, 1)
     used += chains * final_draws

@@ -35,6 +35,7 @@ from numpyro.infer.util import transform_fn
 from zhat.estimators.draws import AuxiliaryDraws
 from zhat.kernels import _random_walk as rw
 from zhat.kernels._shell import AlgorithmState, ModelKernel
+from zhat.model.degeneracy import simulate_and_check
 from zhat.model.potential import as_potential, potential_sites
 
 Array = jax.Array
@@ -114,7 +115,21 @@ class Exchange(ModelKernel):
     def init(self, rng_key, num_warmup, init_params, model_args, model_kwargs):
         state = super().init(rng_key, num_warmup, init_params, model_args, model_kwargs)
         self._check_ownership(state, model_args, model_kwargs or {})
+        if not self.exact:
+            self._check_degeneracy(state, model_args, model_kwargs or {})
         return state
+
+    def _check_degeneracy(self, state, model_args: tuple, model_kwargs: dict) -> None:
+        """Stop before sampling when simulator draws at the start collapse (a degenerate model,
+        :mod:`zhat.model.degeneracy`); skipped when the start is traced."""
+        z = jax.tree.map(lambda v: v[0], state.z) if state.logdensity.ndim else state.z
+        if any(isinstance(v, jax.core.Tracer) for v in jax.tree.leaves(z)):
+            return
+        families = self._target(model_args, model_kwargs).families(z)
+        for name, (dist, data) in sorted(families.items()):
+            simulate_and_check(
+                dist, data, f"the chain's start (site '{name}')", simulator=self._draws.sampler
+            )
 
     def _check_ownership(self, state, model_args: tuple, model_kwargs: dict) -> None:
         """Refuse a Gibbs split in which another block moves a site that enters a family."""

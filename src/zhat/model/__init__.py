@@ -1,5 +1,6 @@
 """The modelling layer: intractable factors, their estimators' interface, and ``expose``."""
 
+from zhat.model.degeneracy import DegenerateModelError
 from zhat.model.expose import (
     ESTIMATE_SUFFIX,
     INFER_KEY,
@@ -15,6 +16,7 @@ from zhat.model.factor import Estimator, IntractableFactor, NotExposedError
 from zhat.model.integrate import IntegratedFactor, integrate_out
 from zhat.model.potential import PotentialOnly, as_potential, potential_sites
 from zhat.model.unnormalized import (
+    Degeneracy,
     Family,
     PerfectSampler,
     Transition,
@@ -23,6 +25,8 @@ from zhat.model.unnormalized import (
 )
 
 __all__ = [
+    "Degeneracy",
+    "DegenerateModelError",
     "ESTIMATE_SUFFIX",
     "INFER_KEY",
     "NOISE_SUFFIX",

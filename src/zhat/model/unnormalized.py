@@ -19,7 +19,9 @@ calling the family with parameters gives a NumPyro distribution for
   e.g. covariates). A free parameter the model passes as a plain number or NumPy array (not a
   JAX array, as sampled sites are) is *held* at that value: a model that fixes the field of an
   Ising model at zero gets a reference point with zero field,
-- ``structure``: the fixed structure the family lives on (e.g. a neighbour graph).
+- ``structure``: the fixed structure the family lives on (e.g. a neighbour graph),
+- ``degeneracy``: a :class:`Degeneracy`, how to tell that simulated data have collapsed to an
+  extreme of the support (e.g. the empty or the complete graph), see :mod:`zhat.model.degeneracy`.
 
 The log density of such a site is unavailable; :func:`zhat.expose` replaces it by an estimate.
 """
@@ -69,6 +71,20 @@ class PerfectSampler(NamedTuple):
     conditions: str = ""
 
 
+class Degeneracy(NamedTuple):
+    """How full a data set is, to detect simulations that collapse to an extreme.
+
+    - **fill** - ``(x) -> number in [0, 1]`` (e.g. the tie density of a graph); a jax function.
+    - **empty**, **full** - what fill 0 and fill 1 are called ("the empty graph", ...).
+    - **advice** - what to change when the model's simulations collapse.
+    """
+
+    fill: Callable[[Array], Array]
+    empty: str
+    full: str
+    advice: str
+
+
 @dataclasses.dataclass(frozen=True, eq=False)
 class Family:
     """A named unnormalized family; call it with parameters to get a distribution."""
@@ -85,6 +101,7 @@ class Family:
     pseudo_log_likelihood: Callable[..., Array] | None = None
     free_parameters: tuple[str, ...] = ()
     structure: Any = None
+    degeneracy: Degeneracy | None = None
 
     def __call__(self, *, event_shape: tuple[int, ...] | None = None, **params: ArrayLike):
         shape = self.event_shape if event_shape is None else tuple(event_shape)
