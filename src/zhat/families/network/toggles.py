@@ -1,20 +1,62 @@
 """Metropolis–Hastings toggle samplers of a random graph, driven by standard-normal noise.
 
 Each call makes a fixed number of toggles (Snijders 2002, J. Social Structure 3(2); Morris,
-Handcock & Hunter 2008, J. Stat. Softw. 24(4)); every uniform is the noise through Φ:
+Handcock & Hunter 2008, J. Stat. Softw. 24(4)); every uniform is the noise through Φ. The dyads
+are the M = n(n−1)/2 unordered pairs of an undirected graph, or the M = n(n−1) ordered pairs
+i ≠ j of a directed one (a toggle of i → j flips a[i, j] alone).
 
 - ``tie_no_tie``: with probability 1/2 propose removing a uniformly chosen tie, otherwise adding
-  a tie at a uniformly chosen empty dyad. With E ties among M = n(n−1)/2 dyads the Hastings
-  ratio is e^{−θ·δ} E/(M − E + 1) for a removal and e^{θ·δ} (M − E)/(E + 1) for an addition; a
-  half with nothing to choose from (no ties, or a full graph) proposes staying put. Choosing the
-  tie scans the dyads: O(n²) per toggle. It moves well in sparse graphs.
-- ``toggle``: flip a uniformly chosen dyad, accepted with probability min(1, e^{±θ·δ}); O(n)
-  per toggle.
+  a tie at a uniformly chosen empty dyad. With E ties the Hastings ratio is
+  e^{−θ·δ} E/(M − E + 1) for a removal and e^{θ·δ} (M − E)/(E + 1) for an addition; a half with
+  nothing to choose from (no ties, or a full graph) proposes staying put. It moves well in
+  sparse graphs. Noise per toggle: 3 (half, dyad, acceptance).
+- ``toggle``: flip a uniformly chosen dyad, accepted with probability min(1, e^{±θ·δ}).
+  Noise per toggle: 2 (dyad, acceptance).
 
-Both leave p(· | θ) invariant.
+Both leave p(· | θ) invariant. ``noise_shape`` is (toggles, 3) and (toggles, 2).
+
+Choosing a tie in O(n). With degrees d (out-degrees when directed) and E ties, pick node i with
+probability d_i / Σd, then a uniformly chosen neighbour j of i (out-neighbour when directed).
+One uniform u does both: the rank r = floor(u Σd) is uniform on {0, …, Σd − 1}; i is the node
+whose block [d_1 + … + d_{i−1}, d_1 + … + d_i) holds r, and r minus the block's start, uniform
+on {0, …, d_i − 1} given i, numbers the neighbour.
+Undirected, Σd = 2E and the tie {i, j} is reached from either end:
+P({i, j}) = d_i/(2E) · 1/d_i + d_j/(2E) · 1/d_j = 1/E. Directed, Σd = E and the tie i → j is
+reached from i only: P = d_i/E · 1/d_i = 1/E. An empty dyad likewise: node i with probability
+(n − 1 − d_i) / Σ_k (n − 1 − d_k), then a uniformly chosen non-neighbour j ≠ i. Undirected,
+Σ_k (n − 1 − d_k) = n(n − 1) − 2E = 2(M − E), so P({i, j}) = 2 / (2(M − E)) = 1/(M − E);
+directed, the sum is M − E and P(i → j) = 1/(M − E). Both choices are exactly uniform, so the
+Hastings ratio above holds unchanged.
+
+State carried through the toggles. At the start of a call the sampler computes the degrees d,
+the number of ties E and, when a statistic needs shared partners (undirected triangles,
+weighted_shared_partners, weighted_dyad_partners), S = A A (S_ij = Σ_k A_ik A_kj; the diagonal
+holds the degrees). An accepted toggle that changes A_ij by Δ = ±1 changes d_i, d_j by Δ and
+rows and columns i, j of S: with a_i, a_j the rows of A with the dyad empty,
+
+    S_i· += Δ (a_j + e_i),  S_j· += Δ (a_i + e_j),  S_·i += Δ a_j,  S_·j += Δ a_i
+
+(from (A + ΔE_ij)² = A² + Δ(A E_ij + E_ij A) + Δ² E_ij², E_ij = e_i e_jᵀ + e_j e_iᵀ), O(n).
+From this state the change statistics (module :mod:`zhat.families.network.statistics`), with
+t = A_ij and the counts taken with the dyad empty, are O(n) each:
+
+    stars(k)                     C(d_i − t, k−1) + C(d_j − t, k−1)
+    triangles                    S_ij
+    weighted_degrees(α)          r^{d_i − t} + r^{d_j − t},   r = 1 − e^{−α}
+    weighted_shared_partners(α)  e^α (1 − r^{S_ij}) + Σ_k a_ik a_jk (r^{S_ik − t} + r^{S_jk − t})
+    weighted_dyad_partners(α)    Σ_k a_jk r^{S_ik − t a_jk} + a_ik r^{S_jk − t a_ik}
+
+(for a common partner k, the path i–j–k is the one shared partner of i and k that the dyad
+itself supplies, hence S_ik − t). Powers of r come from a table r^0 … r^n. Every other
+statistic, and every statistic of a directed graph, uses ``Statistic.change`` on the adjacency
+matrix with the dyad cleared.
 """
 
 from __future__ import annotations
+
+import math
+from collections.abc import Callable
+from typing import NamedTuple
 
 import jax
 import jax.numpy as jnp
@@ -23,61 +65,405 @@ from jax import lax
 from jax.scipy.special import ndtr
 from jax.typing import ArrayLike
 
-from zhat.families.network.statistics import Statistic, change_statistics
+from zhat.families.network.statistics import Statistic
 from zhat.model.unnormalized import Transition
 
 Array = jax.Array
 
-__all__ = ["toggle_simulators"]
+__all__ = [
+    "ToggleMoves",
+    "ToggleState",
+    "Update",
+    "change_from_state",
+    "choose_empty_dyad",
+    "choose_tie",
+    "run",
+    "toggle_moves",
+    "toggle_simulators",
+]
+
+SHARED_KINDS = ("triangles", "weighted_shared_partners", "weighted_dyad_partners")
+NOISE_WIDTH = {"tie_no_tie": 3, "toggle": 2}
+
+
+class ToggleState(NamedTuple):
+    """What the toggles carry (counts int32):
+
+    - **adjacency** - (n, n) float 0/1,
+    - **degrees** - d (out-degrees when directed) and **cumulative** - their running sums,
+    - **partners** - (n, n): row i is a permutation of the nodes, the d_i neighbours of i first
+      (out-neighbours when directed), then the other nodes, i itself last; **position** its
+      inverse, position[i, partners[i, p]] = p,
+    - **shared** - S = A A, or None when no statistic needs it,
+    - **ties** - E.
+    """
+
+    adjacency: Array
+    degrees: Array
+    cumulative: Array
+    partners: Array
+    position: Array
+    shared: Array | None
+    ties: Array
+
+
+class Update(NamedTuple):
+    """One toggle's outcome, to be written into the state: the dyad (i, j), its new value, the
+    change of A_ij (−1, 0 or 1), the entries (rows, slots, nodes) to write into ``partners``
+    (``position`` gets the inverse) and the new rows i and j of S (None without S)."""
+
+    i: Array
+    j: Array
+    value: Array
+    step: Array
+    list_rows: Array
+    list_slots: Array
+    list_nodes: Array
+    shared_i: Array | None
+    shared_j: Array | None
+
+
+class ToggleMoves(NamedTuple):
+    """Pure functions of one model: ``init(a) -> state``; the single toggles
+    ``move(theta, state, z) -> update`` (z: the noise of one toggle), which only read the
+    state; ``apply(state, update) -> state``, which only writes; ``idle(state)``, an update
+    changing nothing.
+
+    :func:`run` applies each update at the start of the next toggle, so that in each step of
+    the loop every write to the matrices comes before every read and XLA updates them in
+    place (reading an old matrix after writing a new one would make it copy it: O(n²))."""
+
+    init: Callable[[Array], ToggleState]
+    tie_no_tie: Callable[[Array, ToggleState, Array], Update]
+    toggle: Callable[[Array, ToggleState, Array], Update]
+    apply: Callable[[ToggleState, Update], ToggleState]
+    idle: Callable[[ToggleState], Update]
 
 
 def _matrix(x: ArrayLike, n: int) -> Array:
     return jnp.asarray(x).reshape(n, n).astype(jnp.result_type(float))
 
 
-def toggle_simulators(n: int, stats: tuple[Statistic, ...], toggles: int) -> dict[str, Transition]:
-    """The simulators ``{"tie_no_tie", "toggle"}`` of a model on n nodes (``toggles`` per call)."""
-    rows, cols = (jnp.asarray(v) for v in np.triu_indices(n, k=1))
-    m_dyads = rows.size
+def _needs_shared(stats: tuple[Statistic, ...], directed: bool) -> bool:
+    return not directed and any(s.kind in SHARED_KINDS for s in stats)
 
-    def flip(a, i, j, accept):
-        new = jnp.where(accept, 1.0 - a[i, j], a[i, j])
-        return a.at[i, j].set(new).at[j, i].set(new)
 
-    def tie_no_tie(theta, a, z):
-        u = ndtr(z)
-        upper = a[rows, cols]
-        ties = jnp.sum(upper)
-        remove = u[0] < 0.5
-        count = jnp.where(remove, ties, m_dyads - ties)
-        chosen = jnp.where(remove, upper, 1.0 - upper)
-        rank = jnp.clip(jnp.floor(u[1] * count), 0.0, jnp.maximum(count - 1.0, 0.0))
-        m = jnp.clip(jnp.searchsorted(jnp.cumsum(chosen), rank, side="right"), 0, m_dyads - 1)
-        i, j = rows[m], cols[m]
-        gain = jnp.dot(theta, change_statistics(stats, a, i, j))
-        log_ratio = jnp.where(  # −inf where the half has nothing to choose (never accepted)
-            remove,
-            -gain + jnp.log(ties) - jnp.log(m_dyads - ties + 1.0),
-            gain + jnp.log(m_dyads - ties) - jnp.log(ties + 1.0),
+def _init(a: Array, shared: bool, directed: bool) -> ToggleState:
+    n = a.shape[0]
+    degrees = jnp.rint(jnp.sum(a, axis=1)).astype(jnp.int32)
+    total = jnp.sum(degrees)
+    ties = total if directed else total // 2
+    # sort key: neighbours 0, other nodes 1, the node itself 2 (stable: by node number within)
+    key = (a < 0.5).astype(jnp.int32) + jnp.eye(n, dtype=jnp.int32)
+    partners = jnp.argsort(key, axis=1, stable=True).astype(jnp.int32)
+    position = jnp.argsort(partners, axis=1).astype(jnp.int32)
+    s = jnp.rint(a @ a).astype(jnp.int32) if shared else None
+    return ToggleState(
+        a, degrees, jnp.cumsum(degrees), partners, position, s, ties.astype(jnp.int32)
+    )
+
+
+def _choose_dyad(state: ToggleState, u: Array, tie: Array) -> tuple[Array, Array]:
+    """A uniformly chosen tie (``tie`` true) or empty dyad (i, j) from one uniform (module
+    docstring): the rank r = floor(u W_n) among the cumulative weights W (degrees, or numbers
+    of non-neighbours) gives the node i whose block [W_{i−1}, W_i) holds r, and r − W_{i−1}
+    the slot in i's neighbours (or in its other nodes). O(n) for i, O(1) for the partner."""
+    n = state.degrees.shape[0]
+    spare = (jnp.arange(1, n + 1, dtype=jnp.int32)) * (n - 1) - state.cumulative
+    cum = jnp.where(tie, state.cumulative, spare)
+    total = cum[-1]
+    rank = jnp.floor(u * total.astype(u.dtype)).astype(jnp.int32)
+    rank = jnp.clip(rank, 0, jnp.maximum(total - 1, 0))
+    i = jnp.minimum(jnp.sum(cum <= rank), n - 1).astype(jnp.int32)
+    d = state.degrees[i]
+    before = cum[i] - jnp.where(tie, d, n - 1 - d)
+    slot = jnp.where(tie, rank - before, d + rank - before)
+    return i, state.partners[i, jnp.clip(slot, 0, n - 2)]
+
+
+def choose_tie(state: ToggleState, u: ArrayLike) -> tuple[Array, Array]:
+    """A uniformly chosen tie (i, j) from one uniform: node i by its degree, then a uniform
+    neighbour (out-degree and out-neighbour when directed). Meaningless without ties."""
+    return _choose_dyad(state, jnp.asarray(u), jnp.asarray(True))
+
+
+def choose_empty_dyad(state: ToggleState, u: ArrayLike) -> tuple[Array, Array]:
+    """A uniformly chosen empty dyad (i, j), i ≠ j, from one uniform: node i by its number of
+    non-neighbours n − 1 − d_i, then a uniform non-neighbour. Meaningless for a full graph."""
+    return _choose_dyad(state, jnp.asarray(u), jnp.asarray(False))
+
+
+def _power_table(stat: Statistic, n: int, dtype) -> Array:
+    r = 1.0 - math.exp(-stat.decay)
+    return jnp.asarray(r ** np.arange(n + 1, dtype=float), dtype)
+
+
+def _choose(d: Array, k: int) -> Array:
+    out = jnp.ones_like(d)
+    for m in range(k):
+        out = out * (d - m) / (m + 1)
+    return jnp.maximum(out, 0.0) if k else out
+
+
+class _Dyad(NamedTuple):
+    """What the change statistics of dyad (i, j) read, before the toggle: t = A_ij, the rows
+    of A with the dyad empty, the degrees with the dyad empty and the rows of S."""
+
+    i: Array
+    j: Array
+    t: Array
+    row_i: Array
+    row_j: Array
+    degree_i: Array
+    degree_j: Array
+    shared_i: Array | None
+    shared_j: Array | None
+
+
+def _read(state: ToggleState, i: Array, j: Array, directed: bool) -> _Dyad:
+    a = state.adjacency
+    row_i, row_j = a[i], a[j]
+    t = row_i[j]
+    row_i = row_i.at[j].set(0.0)
+    if not directed:
+        row_j = row_j.at[i].set(0.0)
+    ti = t.astype(jnp.int32)
+    s = state.shared
+    return _Dyad(
+        i,
+        j,
+        t,
+        row_i,
+        row_j,
+        state.degrees[i] - ti,
+        state.degrees[j] - ti,
+        None if s is None else s[i],
+        None if s is None else s[j],
+    )
+
+
+def _changes(
+    stats: tuple[Statistic, ...], dyad: _Dyad, cleared: Callable[[], Array], directed: bool
+) -> Array:
+    """δ_ij from what was read of the dyad; ``cleared()`` gives the adjacency matrix with the
+    dyad empty, for the statistics without a fast form (and all of a directed graph)."""
+    dtype = dyad.row_i.dtype
+    n = dyad.row_i.shape[0]
+    i, j, ai, aj = dyad.i, dyad.j, dyad.row_i, dyad.row_j
+    ti = dyad.t.astype(jnp.int32)
+    di, dj = dyad.degree_i, dyad.degree_j
+    out = []
+    a = None
+    for s in stats:
+        if s.kind == "edges":
+            out.append(jnp.ones((), dtype))
+        elif directed:
+            a = cleared() if a is None else a
+            out.append(s.change(a, i, j, True))
+        elif s.kind == "stars":
+            k = s.order - 1
+            out.append(_choose(di.astype(dtype), k) + _choose(dj.astype(dtype), k))
+        elif s.kind == "weighted_degrees":
+            power = _power_table(s, n, dtype)
+            out.append(power[di] + power[dj])
+        elif s.kind == "triangles":
+            out.append(dyad.shared_i[j])
+        elif s.kind == "weighted_shared_partners":
+            power = _power_table(s, n, dtype)
+            si, sj = dyad.shared_i, dyad.shared_j
+            own = math.exp(s.decay) * (1.0 - power[si[j]])
+            near = power[jnp.maximum(si - ti, 0)] + power[jnp.maximum(sj - ti, 0)]
+            out.append(own + jnp.sum(ai * aj * near))
+        elif s.kind == "weighted_dyad_partners":
+            power = _power_table(s, n, dtype)
+            si, sj = dyad.shared_i, dyad.shared_j
+            to_i = power[jnp.maximum(si - ti * aj.astype(jnp.int32), 0)]
+            to_j = power[jnp.maximum(sj - ti * ai.astype(jnp.int32), 0)]
+            out.append(jnp.sum(aj * to_i + ai * to_j))
+        else:
+            a = cleared() if a is None else a
+            out.append(s.change(a, i, j, False))
+    return jnp.stack([jnp.asarray(v, dtype) for v in out])
+
+
+def _cleared(a: Array, i: Array, j: Array, directed: bool) -> Array:
+    return a.at[i, j].set(0.0) if directed else a.at[i, j].set(0.0).at[j, i].set(0.0)
+
+
+def change_from_state(
+    stats: tuple[Statistic, ...],
+    state: ToggleState,
+    i: ArrayLike,
+    j: ArrayLike,
+    *,
+    directed: bool = False,
+) -> Array:
+    """The vector δ_ij(A) from a toggle state (the dyad may hold a tie; ``state`` from
+    ``toggle_moves(n, stats, directed).init``); equals
+    :func:`~zhat.families.network.statistics.change_statistics` up to rounding."""
+    i, j = jnp.asarray(i, jnp.int32), jnp.asarray(j, jnp.int32)
+    a = state.adjacency
+    dyad = _read(state, i, j, directed)
+    return _changes(stats, dyad, lambda: _cleared(a, i, j, directed), directed)
+
+
+def _swap(state: ToggleState, v: Array, w: Array, step: Array):
+    """The entries moving w into (step 1) or out of (step −1) the neighbours at the front of
+    ``partners[v]``: w swaps places with the first non-neighbour or the last neighbour."""
+    p = state.position[v, w]
+    d = state.degrees[v]
+    q = jnp.where(step > 0, d, jnp.where(step < 0, d - 1, p))
+    x = state.partners[v, q]
+    return jnp.stack([v, v]), jnp.stack([p, q]), jnp.stack([x, w])
+
+
+def toggle_moves(n: int, stats: tuple[Statistic, ...], directed: bool = False) -> ToggleMoves:
+    """The single toggles of a model on n nodes (see the module docstring)."""
+    shared = _needs_shared(stats, directed)
+    m_dyads = n * (n - 1) if directed else n * (n - 1) // 2
+    rows, cols = (jnp.asarray(v, jnp.int32) for v in np.triu_indices(n, k=1))
+    nodes = jnp.arange(n, dtype=jnp.int32)
+
+    def outcome(state, dyad, accept):
+        i, j, t = dyad.i, dyad.j, dyad.t
+        new = jnp.where(accept, 1.0 - t, t)
+        step = (new - t).astype(jnp.int32)
+        moves = [_swap(state, i, j, step)]
+        if not directed:
+            moves.append(_swap(state, j, i, step))
+        lists = [jnp.concatenate(parts) for parts in zip(*moves, strict=True)]
+        s_i = s_j = None
+        if shared:
+            ai, aj = dyad.row_i.astype(jnp.int32), dyad.row_j.astype(jnp.int32)
+            s_i = dyad.shared_i + step * (aj + (nodes == i))
+            s_j = dyad.shared_j + step * (ai + (nodes == j))
+        return Update(i, j, new, step, *lists, s_i, s_j)
+
+    def propose(theta, state, i, j, possible, u_accept, weigh):
+        """Metropolis–Hastings on toggling (i, j); ``weigh(gain, t)`` is the log ratio."""
+        dyad = _read(state, i, j, directed)
+        a = state.adjacency
+        delta = _changes(stats, dyad, lambda: _cleared(a, i, j, directed), directed)
+        accept = possible & (jnp.log(u_accept) < weigh(jnp.dot(theta, delta), dyad.t))
+        return outcome(state, dyad, accept)
+
+    def apply(state, update):
+        i, j, new, step = update.i, update.j, update.value, update.step
+        change = step * (nodes == i)
+        after = step * (nodes >= i)
+        if directed:
+            a = state.adjacency.at[i, j].set(new)
+        else:  # one scatter: a chain of two would keep an intermediate matrix alive
+            both = jnp.stack([i, j])
+            a = state.adjacency.at[both, both[::-1]].set(new)
+            change = change + step * (nodes == j)
+            after = after + step * (nodes >= j)
+        r, q, w = update.list_rows, update.list_slots, update.list_nodes
+        partners = state.partners.at[r, q].set(w)
+        position = state.position.at[r, w].set(q)
+        s = state.shared
+        if shared:  # S stays symmetric: the new columns i, j are the new rows
+            ri, rj = update.shared_i, update.shared_j
+            zero = jnp.zeros((), jnp.int32)
+            s = lax.dynamic_update_slice(s, ri[None, :], (i, zero))
+            s = lax.dynamic_update_slice(s, rj[None, :], (j, zero))
+            s = lax.dynamic_update_slice(s, ri[:, None], (zero, i))
+            s = lax.dynamic_update_slice(s, rj[:, None], (zero, j))
+        return ToggleState(
+            a,
+            state.degrees + change,
+            state.cumulative + after,
+            partners,
+            position,
+            s,
+            state.ties + step,
         )
-        accept = (count > 0) & (jnp.log(u[2]) < log_ratio)
-        return flip(a, i, j, accept)
 
-    def toggle(theta, a, z):
+    def idle(state):
+        i, j = jnp.zeros((), jnp.int32), jnp.ones((), jnp.int32)
+        return outcome(state, _read(state, i, j, directed), jnp.asarray(False))
+
+    def tie_no_tie(theta, state, z):
         u = ndtr(z)
-        m = jnp.clip(jnp.floor(u[0] * m_dyads).astype(jnp.int32), 0, m_dyads - 1)
-        i, j = rows[m], cols[m]
-        gain = jnp.dot(theta, change_statistics(stats, a, i, j))
-        log_ratio = jnp.where(a[i, j] > 0, -gain, gain)
-        return flip(a, i, j, jnp.log(u[1]) < log_ratio)
+        ties = state.ties
+        remove = u[0] < 0.5
+        i, j = _choose_dyad(state, u[1], remove)
+        count = jnp.where(remove, ties, m_dyads - ties)
+        ties_f = ties.astype(theta.dtype)
 
-    def transition(move, width):
+        def weigh(gain, t):  # −inf where the half has nothing to choose (never accepted)
+            return jnp.where(
+                remove,
+                -gain + jnp.log(ties_f) - jnp.log(m_dyads - ties_f + 1.0),
+                gain + jnp.log(m_dyads - ties_f) - jnp.log(ties_f + 1.0),
+            )
+
+        return propose(theta, state, i, j, count > 0, u[2], weigh)
+
+    def toggle(theta, state, z):
+        u = ndtr(z)
+        m = jnp.clip(jnp.floor(u[0] * m_dyads), 0, m_dyads - 1).astype(jnp.int32)
+        if directed:  # the ordered pairs i ≠ j, row by row
+            i = m // (n - 1)
+            j = (i + 1 + m % (n - 1)) % n
+        else:
+            i, j = rows[m], cols[m]
+
+        def weigh(gain, t):
+            return jnp.where(t > 0, -gain, gain)
+
+        return propose(theta, state, i, j, jnp.asarray(True), u[1], weigh)
+
+    return ToggleMoves(lambda a: _init(a, shared, directed), tie_no_tie, toggle, apply, idle)
+
+
+def run(
+    moves: ToggleMoves,
+    move: Callable[[Array, ToggleState, Array], Update],
+    theta: Array,
+    state: ToggleState,
+    noise: Array,
+) -> ToggleState:
+    """The state after one toggle per row of ``noise`` (``move`` one of ``moves``' toggles)."""
+
+    def body(carry, z):
+        state = lax.optimization_barrier(moves.apply(*carry))
+        return (state, move(theta, state, z)), None
+
+    state, pending = lax.scan(body, (state, moves.idle(state)), noise)[0]
+    return moves.apply(state, pending)
+
+
+def toggle_simulators(
+    n: int, stats: tuple[Statistic, ...], toggles: int, directed: bool = False
+) -> dict[str, Transition]:
+    """The simulators ``{"tie_no_tie", "toggle"}`` of a model on n nodes (``toggles`` per call;
+    ``directed`` for a directed graph, whose dyads are the ordered pairs)."""
+    if not isinstance(directed, (bool, np.bool_)):
+        raise TypeError(f"directed must be True or False; got {directed!r}.")
+    stats = tuple(stats)
+    moves = toggle_moves(n, stats, bool(directed))
+
+    def transition(name):
+        move = getattr(moves, name)
+        width = NOISE_WIDTH[name]
+
         def step(params, x, noise):
             theta = jnp.asarray(params["coefficients"], jnp.result_type(float))
-            a = _matrix(x, n)
-            a = lax.scan(lambda a, z: (move(theta, a, z), None), a, noise)[0]
-            return a.reshape(jnp.shape(x)).astype(jnp.result_type(x))
+            if theta.shape != (len(stats),):
+                raise ValueError(
+                    f"coefficients must have shape ({len(stats)},), one per statistic "
+                    f"{[s.name for s in stats]}; got shape {theta.shape}."
+                )
+            noise = jnp.asarray(noise)
+            if noise.shape != (toggles, width):
+                raise ValueError(
+                    f"the {name} simulator takes noise of shape ({toggles}, {width}) (toggles, "
+                    f"noise per toggle); got {noise.shape}. Use noise_shape(x)."
+                )
+            state = run(moves, move, theta, moves.init(_matrix(x, n)), noise)
+            return state.adjacency.reshape(jnp.shape(x)).astype(jnp.result_type(x))
 
         return Transition(step, lambda x: (toggles, width))
 
-    return {"tie_no_tie": transition(tie_no_tie, 3), "toggle": transition(toggle, 2)}
+    return {"tie_no_tie": transition("tie_no_tie"), "toggle": transition("toggle")}
