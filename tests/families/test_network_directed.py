@@ -156,10 +156,11 @@ def test_edges_and_mutual_normaliser_is_closed_form():
 
 
 def test_pseudo_likelihood_is_the_sum_of_exact_conditionals(key):
-    """For every sampled graph on 4 nodes, the pseudo-log-likelihood equals Σ over the 12 ties
-    of log p(A_ij | rest), each conditional computed from the enumerated joint distribution
-    p(A) ∝ exp(θ·s(A)) over all 2^12 directed graphs (Besag 1975, The Statistician 24(3): the
-    pseudo-likelihood is the product of the full conditionals)."""
+    """For 64 of the 2^12 directed graphs on 4 nodes, drawn at random, the pseudo-log-likelihood
+    equals Σ over the 12 ties of log p(A_ij | rest), each conditional computed from the
+    enumerated joint distribution p(A) ∝ exp(θ·s(A)) over all 2^12 directed graphs (Besag
+    1975, The Statistician 24(3): the pseudo-likelihood is the product of the full
+    conditionals)."""
     n = 4
     stats = [
         network.edges(),
