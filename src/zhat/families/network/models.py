@@ -86,19 +86,6 @@ def _dyad_design(stats: tuple[Statistic, ...], a: Array, directed: bool) -> tupl
     return design, a[rows, cols]
 
 
-def _simulators(n: int, stats: tuple[Statistic, ...], toggles: int, directed: bool) -> dict:
-    """The toggle samplers; a directed model gets none while the samplers cannot toggle
-    single directed ties (then estimators that need draws say no simulator is available)."""
-    if not directed:
-        return toggle_simulators(n, stats, toggles)
-    try:
-        return toggle_simulators(n, stats, toggles, directed=True)
-    except TypeError as err:  # a toggles module without the `directed` keyword
-        if "directed" not in str(err):
-            raise
-        return {}
-
-
 @functools.lru_cache(maxsize=64)
 def _network_family(
     n: int, stats: tuple[Statistic, ...], toggles: int, directed: bool = False
@@ -126,7 +113,7 @@ def _network_family(
         support=_Graphs(),
         event_shape=(n, n),
         statistics=lambda x: statistics(stats, _matrix(x, n), directed=directed),
-        simulators=_simulators(n, stats, toggles, directed),
+        simulators=toggle_simulators(n, stats, toggles, directed=directed),
         perfect_sampler=None,
         default_estimator=None,
         validate=validate,
