@@ -444,35 +444,112 @@ def test_magnetisation_in_ordered_phase_matches_yang(key):
     within_mcse(magnetisation, float(ref.yang_magnetisation(0.6)), "|m| at K = 0.6")
 
 
-@pytest.mark.parametrize(
-    ("shape", "boundary"), [((6, 8), "free"), ((6, 8), "periodic"), ((5, 7), "free")]
-)
+FAST_SWEEP_GRAPHS = {
+    "grid 6x8 free (sublattice arrays)": lambda: lattice.grid(6, 8),
+    "torus 6x8 (sublattice arrays)": lambda: lattice.grid(6, 8, "periodic"),
+    "grid 5x8 free (sublattice arrays, odd rows)": lambda: lattice.grid(5, 8),
+    "torus 20x18 (sublattice arrays, stencil sums)": lambda: lattice.grid(20, 18, "periodic"),
+    "grid 1x6 free (sublattice arrays, one row)": lambda: lattice.grid(1, 6),
+    "grid 5x7 free (colour classes)": lambda: lattice.grid(5, 7),
+    "torus 7x5 (colour classes, not bipartite)": lambda: lattice.grid(7, 5, "periodic"),
+    "petersen (colour classes, dense)": lambda: lattice.from_adjacency(nx.petersen_graph()),
+    "random 5-regular 300 (colour classes, gather)": lambda: lattice.from_adjacency(
+        nx.random_regular_graph(5, 300, seed=1)
+    ),
+}
+
+
+def by_site(nb, row):
+    """A noise row (noise_order) rearranged by site, as heat_bath_sweep takes it."""
+    from zhat.families.lattice.spin_sweep import noise_order
+
+    return jnp.zeros_like(row).at[jnp.asarray(noise_order(nb))].set(row)
+
+
+def plain_sweeps(nb, s, h, coupling, uniforms):
+    """The plain colour-class reference, one sweep per row of uniforms (rows by site)."""
+    for u in uniforms:
+        s = sweeps.heat_bath_sweep(nb, s, jnp.broadcast_to(h, s.shape), coupling, u)
+    return s
+
+
+def test_noise_order_on_a_chequerboard_grid():
+    """Noise entries drive colour 0 in row-major order, then colour 1 (docstring example)."""
+    from zhat.families.lattice.spin_sweep import noise_order
+
+    # 2 × 4 grid, colour (r + c) mod 2: row 0 is 0 1 0 1, row 1 is 1 0 1 0
+    np.testing.assert_array_equal(noise_order(lattice.grid(2, 4)), [0, 2, 5, 7, 1, 3, 4, 6])
+    # an odd torus is coloured greedily; the order is still by colour, then by site
+    nb = lattice.grid(5, 5, "periodic")
+    order = noise_order(nb)
+    assert sorted(order.tolist()) == list(range(25))
+    keys = np.stack([np.asarray(nb.colours)[order], order], axis=1)
+    assert (np.diff(keys[:, 0]) >= 0).all()
+    assert all((np.diff(order[keys[:, 0] == c]) > 0).all() for c in range(nb.num_colours))
+
+
+@pytest.mark.parametrize("graph", FAST_SWEEP_GRAPHS)
 @pytest.mark.parametrize("field_kind", ["scalar", "per site"])
-@pytest.mark.parametrize("coupling", [0.4, -0.3])
-def test_fast_sweep_is_the_colour_class_sweep(key, shape, boundary, field_kind, coupling):
-    """The threshold-table and quarter-layout sweep computes the same spins as the plain
-    colour-class sweep with U = Φ(z) from the same noise (Φ is increasing, so U < p ⇔
-    z < Φ⁻¹(p); common practice), on grids with even sides (quarters) and odd ones."""
+@pytest.mark.parametrize("coupling", [0.4, -0.3, 0.0])
+def test_fast_sweep_is_the_colour_class_sweep(key, graph, field_kind, coupling):
+    """The levels-and-layout sweep computes the same spins as the plain colour-class sweep
+    with U = Φ(z) from the same noise (each noise entry given to its site by noise_order):
+    Φ is increasing, so U < p ⇔ z < Φ⁻¹(p); common practice. Also with the sublattice flip
+    of coupling from the past, and with uniform noise."""
     from zhat.families.lattice.spin_sweep import spin_sweep
 
-    nb = lattice.grid(*shape, boundary)
+    nb = FAST_SWEEP_GRAPHS[graph]()
     n = nb.num_sites
     k_start, k_noise, k_field = jax.random.split(key, 3)
     s = jnp.where(jax.random.bernoulli(k_start, 0.5, (n,)), 1.0, -1.0)
     z = jax.random.normal(k_noise, (7, n))
     h = jnp.asarray(0.1) if field_kind == "scalar" else 0.3 * jax.random.normal(k_field, (n,))
     j = jnp.asarray(coupling)
-    plain = s
-    for t in range(7):
-        plain = sweeps.heat_bath_sweep(nb, plain, jnp.broadcast_to(h, (n,)), j, ndtr(z[t]))
+    uniforms = [by_site(nb, ndtr(row)) for row in z]
+    plain = plain_sweeps(nb, s, h, j, uniforms)
+    assert not np.array_equal(plain, s)
     np.testing.assert_array_equal(lattice.gibbs_sweeps(nb, s, h, j, z), plain)
+    np.testing.assert_array_equal(
+        jax.jit(lattice.gibbs_sweeps, static_argnums=0)(nb, s, h, j, z), plain
+    )
+    if not nb.bipartite:
+        return
     signs = jnp.asarray([1.0, -1.0])  # the sublattice flip of coupling from the past
-    plan = spin_sweep(nb, h, j, signs if nb.bipartite else None)
-    state = plan.to_state(s)
-    for t in range(7):
-        state = plan.sweep(state, plan.to_noise(z[t]))
-    flipped = jnp.broadcast_to(h, (n,)) * (signs[jnp.asarray(nb.sides)] if nb.bipartite else 1.0)
-    plain = s
-    for t in range(7):
-        plain = sweeps.heat_bath_sweep(nb, plain, flipped, j, ndtr(z[t]))
-    np.testing.assert_array_equal(plan.from_state(state), plain)
+    flipped = jnp.broadcast_to(h, (n,)) * signs[jnp.asarray(nb.sides)]
+    plain = plain_sweeps(nb, s, flipped, j, uniforms)
+    for uniform, rows in [(False, z), (True, ndtr(z))]:
+        plan = spin_sweep(nb, h, j, signs, uniform=uniform)
+        state = plan.to_state(s)
+        for row in rows:
+            state = plan.sweep(state, plan.to_noise(row))
+        np.testing.assert_array_equal(plan.from_state(state), plain)
+
+
+@pytest.mark.parametrize(
+    "graph",
+    [
+        "grid 6x8 free (sublattice arrays)",
+        "torus 6x8 (sublattice arrays)",
+        "grid 5x7 free (colour classes)",
+    ],
+)
+def test_fast_sweep_under_vmap_and_leading_axes(key, graph):
+    """Chains batched by vmap, and noise and states with explicit leading axes, give each
+    chain's own result (the layouts keep leading axes)."""
+    from zhat.families.lattice.spin_sweep import spin_sweep
+
+    nb = FAST_SWEEP_GRAPHS[graph]()
+    n = nb.num_sites
+    k_start, k_noise = jax.random.split(key)
+    s = jnp.where(jax.random.bernoulli(k_start, 0.5, (3, n)), 1.0, -1.0)
+    z = jax.random.normal(k_noise, (3, 4, n))
+    h, j = jnp.asarray(-0.2), jnp.asarray(0.5)
+    one_by_one = jnp.stack([lattice.gibbs_sweeps(nb, s[c], h, j, z[c]) for c in range(3)])
+    batched = jax.vmap(lambda s, z: lattice.gibbs_sweeps(nb, s, h, j, z))(s, z)
+    np.testing.assert_array_equal(batched, one_by_one)
+    plan = spin_sweep(nb, h, j)
+    state = plan.to_state(s)  # (3, ...) states, (3, 4, ...) levels
+    levels = plan.to_noise(z)
+    for t in range(4):
+        state = jax.vmap(plan.sweep)(state, levels[:, t])
+    np.testing.assert_array_equal(plan.from_state(state), one_by_one)

@@ -1,22 +1,39 @@
 """Heat-bath sweeps of the spin form driven by standard-normal noise, in the fastest layout.
 
 The heat-bath update sets s_i = +1 iff U_i < σ(2 (h_i + J n_i)), n_i = Σ_{j~i} s_j, with
-U_i = Φ(z_i) (Geman & Geman 1984; see :mod:`zhat.families.lattice.sweeps`). Two things make it
-cheaper without changing what it computes:
+U_i = Φ(z_i) (Geman & Geman 1984; see :mod:`zhat.families.lattice.sweeps`). Colour classes are
+updated in order (colour 0, then 1, ...), every site of a class at once.
 
-- **Thresholds in normal space.** Φ is increasing, so U_i < p ⇔ z_i < Φ⁻¹(p). When the field
-  is one number per colour class, p takes one value per neighbour sum n ∈ {−D..D} (D the
-  largest degree): the 2D + 1 thresholds Φ⁻¹(σ(2 (h + J n))) are computed once per sweep and
-  no site needs Φ (the same idea as a precomputed table of conditional probabilities, common
-  practice). A field that varies by site takes Φ(z_i) per site as before.
-- **Quarter layout on grids with even sides** (with a field that is one number). Site (r, c)
-  is stored in one of four (rows/2, cols/2) arrays by (r mod 2, c mod 2). The two colour
-  classes of the chequerboard ((r + c) mod 2) are two quarters each, and every neighbour of a
-  quarter lies in the two quarters of the other colour at the same or a shifted index, so each
-  half-sweep touches only the sites it updates (no masks, no work on the other colour).
+**Noise to sites.** Entry k of a noise row (one row per sweep) drives site ``noise_order(nb)[k]``:
+the sites sorted by colour class, by increasing site index within a class. On a grid
+coloured as a chequerboard ((r + c) mod 2) that is: the sites of colour 0 in row-major order,
+then those of colour 1 in row-major order. (The plain reference
+:func:`zhat.families.lattice.sweeps.heat_bath_sweep` takes its uniforms by site instead:
+``u[noise_order(nb)] = Φ(z)`` gives it the same uniforms.)
 
-The sweep order (colour 0 then colour 1 on a bipartite graph, colour by colour otherwise) and
-the noise-to-site assignment are those of :func:`zhat.families.lattice.sweeps.heat_bath_sweep`.
+Three things make the sweep cheap without changing what it computes:
+
+- **Noise as levels.** The neighbour sum takes few values: n ∈ {−D, −D + 2, …, D} when every
+  degree has the parity of the largest degree D, n ∈ {−D, …, D} otherwise. Write them
+  v_0 < v_1 < … < v_{K−1} and g = sign(J) (+1 for J = 0). The threshold
+  t_j = Φ⁻¹(σ(2 (h + J g v_j))) increases with j, and Φ is increasing, so
+  U < σ(2 (h + J n)) ⇔ z < t_{j(g n)} ⇔ g n ≥ v_0 + step · #{j : z ≥ t_j}.
+  Each noise value is turned once into that small integer (its *level*); the sweep itself
+  then only adds neighbour spins and compares integers. With a field that is one number per
+  colour class the K thresholds are computed once in normal space and no site needs Φ (the
+  same idea as a precomputed table of conditional probabilities, common practice); with a
+  field per site the comparison is in probability space, with U = Φ(z) and the K
+  probabilities σ(2 (h_i + J g v_j)) of each site.
+- **Sublattice layout on chequerboard grids with an even number of columns** (and an even
+  number of rows when periodic). Each colour class is one int8 array, its sites in row-major
+  order — the order of the noise, so the noise needs no reordering. A site's up and down
+  neighbours sit one row (cols/2 entries) before and after it in the other array, its left
+  and right neighbours at the same entry and at the entry before or after it (which one
+  depends on the row's parity). Each array carries a halo of one row and one entry at both
+  ends (zeros on a free grid, the wrapped values on a torus), so every neighbour is a
+  contiguous slice and a half-sweep is one fused loop over the sites it updates.
+- **One pass per block.** :func:`gibbs_sweeps` turns the whole (T, N) noise block into
+  levels before the loop over sweeps.
 """
 
 from __future__ import annotations
@@ -26,6 +43,8 @@ from typing import Any, NamedTuple
 
 import jax
 import jax.numpy as jnp
+import numpy as np
+from jax import lax
 from jax.scipy.special import ndtr, ndtri
 
 from zhat.families.lattice.graph import Neighbours
@@ -33,14 +52,15 @@ from zhat.families.lattice.sweeps import neighbour_sum
 
 Array = jax.Array
 
-__all__ = ["SpinSweep", "gibbs_sweeps", "spin_sweep"]
+__all__ = ["SpinSweep", "gibbs_sweeps", "noise_order", "spin_sweep"]
 
 
 class SpinSweep(NamedTuple):
     """A heat-bath sweep in its own state layout.
 
-    - **to_state** / **from_state** - flat spins (N,) to the layout and back.
-    - **to_noise** - standard normals (..., N) to the layout (leading axes kept, for scans).
+    - **to_state** / **from_state** - spins (..., N) by site to the layout and back.
+    - **to_noise** - standard normals (..., N) (the order of :func:`noise_order`) to the
+      layout of the sweep (leading axes kept, for scans).
     - **sweep** - ``(state, noise) -> state``: one sweep.
     """
 
@@ -50,31 +70,9 @@ class SpinSweep(NamedTuple):
     sweep: Callable[[Any, Any], Any]
 
 
-def _uses_quarters(nb: Neighbours) -> bool:
-    if nb.boundary is None or len(nb.shape) != 2:
-        return False
-    rows, cols = nb.shape
-    return rows % 2 == 0 and cols % 2 == 0 and rows >= 2 and cols >= 2
-
-
-def _thresholds(h: Array, coupling: Array, max_degree: int, uniform: bool) -> Array:
-    """σ(2 (h + J n)) for n = −D..D (index n + D), through Φ⁻¹ for normal noise."""
-    n = jnp.arange(-max_degree, max_degree + 1, dtype=coupling.dtype)
-    p = jax.nn.sigmoid(2.0 * (h + coupling * n))
-    return p if uniform else ndtri(p)
-
-
-def _updater(coupling: Array, d: int, uniform: bool) -> Callable:
-    def update(z: Array, n: Array, h: Array | None, table: Array | None) -> Array:
-        """New spins of one class from its noise z and neighbour sums n."""
-        if table is not None:
-            up = z < table[(n + d).astype(jnp.int32)]
-        else:
-            u = z if uniform else ndtr(z)
-            up = u < jax.nn.sigmoid(2.0 * (h + coupling * n))
-        return jnp.where(up, 1.0, -1.0).astype(n.dtype)
-
-    return update
+def noise_order(nb: Neighbours) -> np.ndarray:
+    """Site driven by each entry of a noise row: sites by colour class, then by index."""
+    return np.argsort(np.asarray(nb.colours), kind="stable")
 
 
 def spin_sweep(
@@ -89,113 +87,209 @@ def spin_sweep(
 
     :param side_signs: on a bipartite graph, optional (2,) factors multiplying the field of
         side 0 and side 1 (the sublattice flip of coupling from the past), kept per class so
-        that a scalar field keeps its threshold table.
+        that a scalar field keeps its thresholds.
     :param uniform: the noise is U(0, 1) instead of standard normal (for kernels that draw
         their own random numbers, which then skip the normal transform).
     """
     dtype = jnp.result_type(float)
     coupling = jnp.asarray(coupling, dtype)
     h = jnp.asarray(h, dtype)
-    scalar = h.ndim == 0
     if side_signs is not None and nb.sides is None:
         raise ValueError("side_signs needs a bipartite graph.")
-    # a field per site compares uniforms: Φ is applied to the noise up front, in one pass
-    # (inside the sweep XLA fuses it badly), and the sweep then sees uniforms
-    if scalar and _uses_quarters(nb):
-        return _quarter_sweep(nb, h, coupling, side_signs, uniform)
-    plan = _colour_sweep(nb, h, coupling, side_signs, scalar, uniform or not scalar)
-    if scalar or uniform:
-        return plan
-    return plan._replace(to_noise=lambda z: plan.to_noise(ndtr(z)))
+    values = _neighbour_sums(nb)
+    g = jnp.where(coupling >= 0, 1, -1)
+    order = noise_order(nb)
+    signs = None if side_signs is None else jnp.asarray(side_signs, dtype)
+    if h.ndim == 0:
+        # one list of K thresholds per colour (a bipartite graph is coloured by its sides)
+        field = h if signs is None else h * signs[: nb.num_colours]
+        field = jnp.broadcast_to(field, (nb.num_colours,))
+        cuts = _cuts(field, coupling, g, values, uniform)  # (K, colours)
+    else:
+        field = jnp.broadcast_to(h, (nb.num_sites,))
+        if signs is not None:
+            field = field * signs[jnp.asarray(nb.sides)]
+        cuts = _cuts(field[order], coupling, g, values, True)  # (K, N) in noise order
+    transform = h.ndim > 0 and not uniform  # per site: compare U = Φ(z)
+
+    def levels(z: Array, cut: Array) -> Array:
+        """v_0 + step · #{j : noise ≥ cut_j} (``cut`` (K, ...) broadcast against ``z``)."""
+        z = jnp.asarray(z, dtype)
+        if transform:
+            z = ndtr(z)
+        count = _count_at_or_below(z, [_lead(c, z.ndim) for c in cut])
+        return values[0] + _step(values) * count
+
+    if _sublattice_grid(nb):
+        size = nb.num_sites // 2
+        # per colour: (K, 2, 1) for a scalar field, (K, 2, N/2) per site
+        cut = cuts.reshape(len(values), 2, -1)
+        return _sublattice_sweep(nb, lambda z: levels(z.reshape(*z.shape[:-1], 2, size), cut), g)
+    if h.ndim == 0:
+        cuts = cuts[:, np.asarray(nb.colours)[order]]  # (K, N): each site its colour's list
+    return _colour_sweep(nb, lambda z: levels(z, cuts), g, order, dtype)
 
 
 def gibbs_sweeps(nb: Neighbours, s: Array, h: Array, coupling: Array, noise: Array) -> Array:
-    """``noise.shape[0]`` heat-bath sweeps from spins ``s`` (N,); noise standard normal (T, N)."""
+    """``noise.shape[0]`` heat-bath sweeps from spins ``s`` (N,); noise standard normal (T, N).
+
+    Row t drives sweep t, its entries assigned to sites as in :func:`noise_order`.
+    """
     plan = spin_sweep(nb, h, coupling)
-    if jnp.ndim(h) == 0:  # threshold tables: each row is split inside the loop (one pass)
-        step = lambda q, z: (plan.sweep(q, plan.to_noise(z)), None)  # noqa: E731
-        state, _ = jax.lax.scan(step, plan.to_state(s), noise)
-    else:  # Φ of the whole noise first: inside the loop XLA fuses it badly
-        step = lambda q, z: (plan.sweep(q, z), None)  # noqa: E731
-        state, _ = jax.lax.scan(step, plan.to_state(s), plan.to_noise(noise))
+    step = lambda q, m: (plan.sweep(q, m), None)  # noqa: E731
+    state, _ = lax.scan(step, plan.to_state(s), plan.to_noise(noise))
     return plan.from_state(state).astype(s.dtype)
 
 
+# --- levels ---------------------------------------------------------------------------------
+def _neighbour_sums(nb: Neighbours) -> np.ndarray:
+    """The values v_0 < … < v_{K−1} a neighbour sum can take (a superset where degrees vary)."""
+    degree = np.asarray(nb.degree)
+    d = int(degree.max(initial=0))
+    step = 2 if np.all(degree % 2 == d % 2) else 1
+    return np.arange(-d, d + 1, step)
+
+
+def _step(values: np.ndarray) -> int:
+    return int(values[1] - values[0]) if len(values) > 1 else 1
+
+
+def _cuts(h: Array, coupling: Array, g: Array, values: np.ndarray, uniform: bool) -> Array:
+    """σ(2 (h + J g v_j)) (K, *h.shape), through Φ⁻¹ unless ``uniform``."""
+    n = g.astype(coupling.dtype) * jnp.asarray(values, coupling.dtype)
+    n = n.reshape(-1, *(1,) * h.ndim)
+    p = jax.nn.sigmoid(2.0 * (h[None] + coupling * n))
+    return p if uniform else ndtri(p)
+
+
+def _count_at_or_below(z: Array, cuts: list[Array]) -> Array:
+    """#{j : z ≥ cuts_j} for increasing cuts, by bisection (fewer comparisons than one per cut).
+
+    Past the middle cut, the upper half replaces the lower one elementwise (+∞ pads it).
+    """
+    if len(cuts) <= 2:
+        return sum(((z >= c).astype(jnp.int32) for c in cuts), jnp.zeros(z.shape, jnp.int32))
+    mid = len(cuts) // 2
+    above = z >= cuts[mid]
+    low, high = cuts[:mid], cuts[mid + 1 :]
+    high = high + [jnp.asarray(jnp.inf, z.dtype)] * (len(low) - len(high))
+    rest = [jnp.where(above, b, a) for a, b in zip(low, high, strict=True)]
+    return jnp.where(above, mid + 1, 0) + _count_at_or_below(z, rest)
+
+
+def _lead(x: Array, ndim: int) -> Array:
+    """``x`` with leading unit axes up to ``ndim`` (explicit broadcasting)."""
+    return x.reshape((1,) * (ndim - x.ndim) + x.shape)
+
+
 # --- any graph: colour classes ----------------------------------------------------------------
-def _colour_sweep(nb, h, coupling, side_signs, scalar, uniform) -> SpinSweep:
-    n, k = nb.num_sites, nb.num_colours
-    d = int(nb.degree.max(initial=0))
+def _colour_sweep(nb, levels, g, order, dtype) -> SpinSweep:
+    k = nb.num_colours
     colours = jnp.asarray(nb.colours)
-    if scalar:
-        # a bipartite graph is coloured by its sides, so the flip is one factor per colour
-        signs = [1.0] * k if side_signs is None else [side_signs[c] for c in range(k)]
-        tables = [_thresholds(h * signs[c], coupling, d, uniform) for c in range(k)]
-        site_h = None
-    else:
-        site_h = jnp.broadcast_to(h, (n,))
-        if side_signs is not None:
-            site_h = site_h * jnp.asarray(side_signs, h.dtype)[jnp.asarray(nb.sides)]
-        tables = [None] * k
+    position = np.argsort(order)  # entry of the noise row that drives each site
 
-    update = _updater(coupling, d, uniform)
+    def to_noise(z: Array) -> Array:
+        return levels(z)[..., position].astype(dtype)
 
-    def sweep(s: Array, z: Array) -> Array:
+    def sweep(s: Array, m: Array) -> Array:
+        gd = g.astype(s.dtype)
         for c in range(k):
-            new = update(z, neighbour_sum(nb, s), site_h, tables[c])
+            new = jnp.where(gd * neighbour_sum(nb, s) >= m, 1.0, -1.0).astype(s.dtype)
             s = jnp.where(colours == c, new, s) if k > 1 else new
         return s
 
-    same = lambda x: x  # noqa: E731
-    return SpinSweep(same, same, same, sweep)
+    def to_state(s: Array) -> Array:
+        return jnp.asarray(s, dtype)
+
+    return SpinSweep(to_state, lambda s: s, to_noise, sweep)
 
 
-# --- grids with even sides: four quarters -----------------------------------------------------
-def _quarter_sweep(nb, h, coupling, side_signs, uniform) -> SpinSweep:
+# --- chequerboard grids with an even number of columns: one array per colour ---------------
+def _sublattice_grid(nb: Neighbours) -> bool:
+    if nb.boundary is None or len(nb.shape) != 2 or nb.num_colours != 2:
+        return False
     rows, cols = nb.shape
+    if cols % 2 or (nb.boundary == "periodic" and rows % 2):
+        return False
+    r, c = np.indices((rows, cols))
+    return bool(np.array_equal(np.asarray(nb.colours), ((r + c) % 2).reshape(-1)))
+
+
+def _sublattice_sweep(nb, levels, g) -> SpinSweep:
+    rows, cols = nb.shape
+    w = cols // 2  # sites of one colour per row
+    size = rows * w
+    o = w + 1  # halo: one row and one entry at each end
     periodic = nb.boundary == "periodic"
+    dtype = jnp.result_type(float)
+    k = np.arange(size)
+    first, last = jnp.asarray(k % w == 0), jnp.asarray(k % w == w - 1)
+    # colour c, row r: the second horizontal neighbour is the entry before when r + c is even
+    before = [jnp.asarray((k // w + c) % 2 == 0) for c in (0, 1)]
 
-    def split(x: Array) -> tuple[Array, Array, Array, Array]:
-        g = x.reshape(*x.shape[:-1], rows // 2, 2, cols // 2, 2)
-        return g[..., 0, :, 0], g[..., 0, :, 1], g[..., 1, :, 0], g[..., 1, :, 1]
+    def shifted(ext: Array, a: int) -> Array:
+        """The other colour's spins a entries after each site (a < 0: before)."""
+        return lax.slice_in_dim(ext, o + a, o + a + size, axis=-1)
 
-    def join(q: tuple[Array, Array, Array, Array]) -> Array:
-        a, b, c, e = q
-        top, bottom = jnp.stack([a, b], -1), jnp.stack([c, e], -1)
-        g = jnp.stack([top, bottom], -3)
-        return g.reshape(*g.shape[:-4], rows * cols)
-
-    def prev(x: Array, axis: int) -> Array:
-        """x at index − 1 along ``axis`` (0 or 1 of the quarter), zero or wrapped at the edge."""
-        axis = x.ndim - 2 + axis
+    def put(ext: Array, new: Array) -> Array:
+        """``new`` into the interior of ``ext``; on a torus the halo is refreshed from it."""
+        ext = lax.dynamic_update_slice_in_dim(ext, new, o, axis=-1)
         if periodic:
-            return jnp.roll(x, 1, axis)
-        pad = [(0, 0)] * x.ndim
-        pad[axis] = (1, 0)
-        return jax.lax.slice_in_dim(jnp.pad(x, pad), 0, x.shape[axis], axis=axis)
+            tail = lax.slice_in_dim(ext, size, size + o, axis=-1)
+            ext = lax.dynamic_update_slice_in_dim(ext, tail, 0, axis=-1)
+            head = lax.slice_in_dim(ext, o, 2 * o, axis=-1)
+            ext = lax.dynamic_update_slice_in_dim(ext, head, o + size, axis=-1)
+        return ext
 
-    def next_(x: Array, axis: int) -> Array:
-        axis = x.ndim - 2 + axis
+    zero = jnp.int8(0)
+
+    def update(other: Array, m: Array, c: int, g8: Array) -> Array:
         if periodic:
-            return jnp.roll(x, -1, axis)
-        pad = [(0, 0)] * x.ndim
-        pad[axis] = (0, 1)
-        return jax.lax.slice_in_dim(jnp.pad(x, pad), 1, x.shape[axis] + 1, axis=axis)
+            left = jnp.where(first, shifted(other, w - 1), shifted(other, -1))
+            right = jnp.where(last, shifted(other, 1 - w), shifted(other, 1))
+        else:
+            left = jnp.where(first, zero, shifted(other, -1))
+            right = jnp.where(last, zero, shifted(other, 1))
+        n = shifted(other, -w) + shifted(other, w) + shifted(other, 0)
+        n = n + jnp.where(before[c], left, right)
+        return jnp.where(n * g8 >= m, jnp.int8(1), jnp.int8(-1))
 
-    # quarters A = (even r, even c), B = (even, odd), C = (odd, even), D = (odd, odd);
-    # colour (r + c) mod 2: A and D are colour 0 (side 0), B and C colour 1. The field is one
-    # number (per side), so each colour has one threshold table.
-    signs = (1.0, 1.0) if side_signs is None else (side_signs[0], side_signs[1])
-    tables = tuple(_thresholds(h * sign, coupling, 4, uniform) for sign in signs)
+    def sweep(state, m):
+        e0, e1 = state
+        g8 = g.astype(jnp.int8)
+        e0 = put(e0, update(e1, m[..., 0, :], 0, g8))
+        e1 = put(e1, update(e0, m[..., 1, :], 1, g8))
+        return e0, e1
 
-    update = _updater(coupling, 4, uniform)
+    # each entry of the two arrays (halo included) as a site, −1 for the zero halo of a free
+    # grid; the sites of colour c in row-major order are those of noise_order
+    order = noise_order(nb)
+    position = np.argsort(order)
+    sources = []
+    for c in (0, 1):
+        inner = order[c * size : (c + 1) * size]
+        if periodic:
+            sources.append(np.concatenate([inner[size - o :], inner, inner[:o]]))
+        else:
+            sources.append(np.concatenate([np.full(o, -1), inner, np.full(o, -1)]))
 
-    def sweep(q, z):
-        a, b, c, e = q
-        za, zb, zc, ze = z
-        a = update(za, prev(c, 0) + c + prev(b, 1) + b, None, tables[0])
-        e = update(ze, b + next_(b, 0) + c + next_(c, 1), None, tables[0])
-        b = update(zb, prev(e, 0) + e + a + next_(a, 1), None, tables[1])
-        c = update(zc, a + next_(a, 0) + prev(e, 1) + e, None, tables[1])
-        return a, b, c, e
+    def to_state(s: Array):
+        x = jnp.asarray(s).astype(jnp.int8)
+        out = []
+        for src in sources:
+            taken = x[..., np.maximum(src, 0)]
+            out.append(
+                taken
+                if periodic
+                else jnp.where(_lead(jnp.asarray(src >= 0), taken.ndim), taken, zero)
+            )
+        return tuple(out)
 
-    return SpinSweep(split, join, split, sweep)
+    def from_state(state) -> Array:
+        x = jnp.concatenate([shifted(e, 0) for e in state], axis=-1)
+        return x[..., position].astype(dtype)
+
+    def to_noise(z: Array) -> Array:
+        return levels(z).astype(jnp.int8)
+
+    return SpinSweep(to_state, from_state, to_noise, sweep)
