@@ -178,7 +178,8 @@ def _choose_dyad(state: ToggleState, u: Array, tie: Array) -> tuple[Array, Array
     d = state.degrees[i]
     before = cum[i] - jnp.where(tie, d, n - 1 - d)
     slot = jnp.where(tie, rank - before, d + rank - before)
-    return i, state.partners[i, jnp.clip(slot, 0, n - 2)]
+    row = lax.optimization_barrier(state.partners[i])  # see _swap
+    return i, row[jnp.clip(slot, 0, n - 2)]
 
 
 def choose_tie(state: ToggleState, u: ArrayLike) -> tuple[Array, Array]:
@@ -222,7 +223,7 @@ class _Dyad(NamedTuple):
 
 def _read(state: ToggleState, i: Array, j: Array, directed: bool) -> _Dyad:
     a = state.adjacency
-    row_i, row_j = a[i], a[j]
+    row_i, row_j = lax.optimization_barrier((a[i], a[j]))  # see _swap
     t = row_i[j]
     row_i = row_i.at[j].set(0.0)
     if not directed:
@@ -310,10 +311,18 @@ def change_from_state(
 def _swap(state: ToggleState, v: Array, w: Array, step: Array):
     """The entries moving w into (step 1) or out of (step −1) the neighbours at the front of
     ``partners[v]``: w swaps places with the first non-neighbour or the last neighbour."""
-    p = state.position[v, w]
+    # whole rows first, then entries of the rows (the barrier stops XLA from folding the two
+    # reads back into one): under vmap a scalar read of a big array becomes a gather that XLA
+    # on CPU splits over threads, which costs far more than it saves
+    row, where = lax.optimization_barrier((state.partners[v], state.position[v]))
+    p = where[w]
     d = state.degrees[v]
+    # both candidates are read before the step is known, so that these reads do not wait for
+    # (and XLA does not fuse into them) the whole acceptance computation
+    first_other = row[jnp.minimum(d, row.shape[0] - 1)]
+    last_neighbour = row[jnp.maximum(d - 1, 0)]
     q = jnp.where(step > 0, d, jnp.where(step < 0, d - 1, p))
-    x = state.partners[v, q]
+    x = jnp.where(step > 0, first_other, jnp.where(step < 0, last_neighbour, w))
     return jnp.stack([v, v]), jnp.stack([p, q]), jnp.stack([x, w])
 
 
