@@ -26,13 +26,21 @@ reached from i only: P = d_i/E · 1/d_i = 1/E. An empty dyad likewise: node i wi
 (n − 1 − d_i) / Σ_k (n − 1 − d_k), then a uniformly chosen non-neighbour j ≠ i. Undirected,
 Σ_k (n − 1 − d_k) = n(n − 1) − 2E = 2(M − E), so P({i, j}) = 2 / (2(M − E)) = 1/(M − E);
 directed, the sum is M − E and P(i → j) = 1/(M − E). Both choices are exactly uniform, so the
-Hastings ratio above holds unchanged.
+Hastings ratio above holds unchanged. (With the same rank r the choice is a function of u
+alone; the tests push a grid of uniforms through it and count each dyad's share exactly.)
+Finding i compares r with the running sums of the degrees, O(n); the neighbour is O(1): each
+node keeps its partner list, a permutation of the nodes with its d_i neighbours first, the
+others next and itself last, so the neighbour numbered r − W_{i−1} is entry r − W_{i−1} of
+the list and the non-neighbour numbered so is entry d_i + r − W_{i−1}. Adding or removing the
+tie i–j swaps j with the first non-neighbour or the last neighbour in i's list (and i in j's
+list), with an inverse permutation to find j's place: O(1).
 
 State carried through the toggles. At the start of a call the sampler computes the degrees d,
-the number of ties E and, when a statistic needs shared partners (undirected triangles,
-weighted_shared_partners, weighted_dyad_partners), S = A A (S_ij = Σ_k A_ik A_kj; the diagonal
-holds the degrees). An accepted toggle that changes A_ij by Δ = ±1 changes d_i, d_j by Δ and
-rows and columns i, j of S: with a_i, a_j the rows of A with the dyad empty,
+their running sums, the partner lists, the number of ties E and, when a statistic needs shared
+partners (undirected triangles, weighted_shared_partners, weighted_dyad_partners),
+S = A A (S_ij = Σ_k A_ik A_kj; the diagonal holds the degrees): O(n³) once per call. An
+accepted toggle that changes A_ij by Δ = ±1 changes d_i, d_j by Δ and rows and columns i, j of
+S: with a_i, a_j the rows of A with the dyad empty,
 
     S_i· += Δ (a_j + e_i),  S_j· += Δ (a_i + e_j),  S_·i += Δ a_j,  S_·j += Δ a_i
 
@@ -48,8 +56,11 @@ t = A_ij and the counts taken with the dyad empty, are O(n) each:
 
 (for a common partner k, the path i–j–k is the one shared partner of i and k that the dyad
 itself supplies, hence S_ik − t). Powers of r come from a table r^0 … r^n. Every other
-statistic, and every statistic of a directed graph, uses ``Statistic.change`` on the adjacency
-matrix with the dyad cleared.
+statistic, and every statistic of a directed graph other than edges, uses ``Statistic.change``
+on the adjacency matrix with the dyad cleared (O(n) or more, as that statistic costs).
+
+The loop writes each toggle's outcome into the state at the start of the next toggle, before
+any read (see :class:`ToggleMoves`), so that XLA updates the matrices in place.
 """
 
 from __future__ import annotations
@@ -125,7 +136,7 @@ class Update(NamedTuple):
 
 class ToggleMoves(NamedTuple):
     """Pure functions of one model: ``init(a) -> state``; the single toggles
-    ``move(theta, state, z) -> update`` (z: the noise of one toggle), which only read the
+    ``move(theta, state, u) -> update`` (u: the uniforms Φ(z) of one toggle), which only read the
     state; ``apply(state, update) -> state``, which only writes; ``idle(state)``, an update
     changing nothing.
 
@@ -178,8 +189,7 @@ def _choose_dyad(state: ToggleState, u: Array, tie: Array) -> tuple[Array, Array
     d = state.degrees[i]
     before = cum[i] - jnp.where(tie, d, n - 1 - d)
     slot = jnp.where(tie, rank - before, d + rank - before)
-    row = lax.optimization_barrier(state.partners[i])  # see _swap
-    return i, row[jnp.clip(slot, 0, n - 2)]
+    return i, state.partners[i, jnp.clip(slot, 0, n - 2)]
 
 
 def choose_tie(state: ToggleState, u: ArrayLike) -> tuple[Array, Array]:
@@ -223,13 +233,16 @@ class _Dyad(NamedTuple):
 
 def _read(state: ToggleState, i: Array, j: Array, directed: bool) -> _Dyad:
     a = state.adjacency
-    row_i, row_j = lax.optimization_barrier((a[i], a[j]))  # see _swap
-    t = row_i[j]
-    row_i = row_i.at[j].set(0.0)
-    if not directed:
+    s = state.shared
+    if s is None:  # no statistic reads the rows of A (and no S to update from them)
+        t = a[i, j]
+        row_i = row_j = None
+    else:
+        row_i, row_j = a[i], a[j]
+        t = row_i[j]
+        row_i = row_i.at[j].set(0.0)
         row_j = row_j.at[i].set(0.0)
     ti = t.astype(jnp.int32)
-    s = state.shared
     return _Dyad(
         i,
         j,
@@ -244,12 +257,15 @@ def _read(state: ToggleState, i: Array, j: Array, directed: bool) -> _Dyad:
 
 
 def _changes(
-    stats: tuple[Statistic, ...], dyad: _Dyad, cleared: Callable[[], Array], directed: bool
+    stats: tuple[Statistic, ...],
+    dyad: _Dyad,
+    cleared: Callable[[], Array],
+    directed: bool,
+    n: int,
 ) -> Array:
     """δ_ij from what was read of the dyad; ``cleared()`` gives the adjacency matrix with the
     dyad empty, for the statistics without a fast form (and all of a directed graph)."""
-    dtype = dyad.row_i.dtype
-    n = dyad.row_i.shape[0]
+    dtype = dyad.t.dtype
     i, j, ai, aj = dyad.i, dyad.j, dyad.row_i, dyad.row_j
     ti = dyad.t.astype(jnp.int32)
     di, dj = dyad.degree_i, dyad.degree_j
@@ -305,22 +321,20 @@ def change_from_state(
     i, j = jnp.asarray(i, jnp.int32), jnp.asarray(j, jnp.int32)
     a = state.adjacency
     dyad = _read(state, i, j, directed)
-    return _changes(stats, dyad, lambda: _cleared(a, i, j, directed), directed)
+    n = a.shape[0]
+    return _changes(stats, dyad, lambda: _cleared(a, i, j, directed), directed, n)
 
 
 def _swap(state: ToggleState, v: Array, w: Array, step: Array):
     """The entries moving w into (step 1) or out of (step −1) the neighbours at the front of
     ``partners[v]``: w swaps places with the first non-neighbour or the last neighbour."""
-    # whole rows first, then entries of the rows (the barrier stops XLA from folding the two
-    # reads back into one): under vmap a scalar read of a big array becomes a gather that XLA
-    # on CPU splits over threads, which costs far more than it saves
-    row, where = lax.optimization_barrier((state.partners[v], state.position[v]))
-    p = where[w]
+    p = state.position[v, w]
     d = state.degrees[v]
+    last = state.partners.shape[1] - 1
     # both candidates are read before the step is known, so that these reads do not wait for
     # (and XLA does not fuse into them) the whole acceptance computation
-    first_other = row[jnp.minimum(d, row.shape[0] - 1)]
-    last_neighbour = row[jnp.maximum(d - 1, 0)]
+    first_other = state.partners[v, jnp.minimum(d, last)]
+    last_neighbour = state.partners[v, jnp.maximum(d - 1, 0)]
     q = jnp.where(step > 0, d, jnp.where(step < 0, d - 1, p))
     x = jnp.where(step > 0, first_other, jnp.where(step < 0, last_neighbour, w))
     return jnp.stack([v, v]), jnp.stack([p, q]), jnp.stack([x, w])
@@ -352,7 +366,7 @@ def toggle_moves(n: int, stats: tuple[Statistic, ...], directed: bool = False) -
         """Metropolis–Hastings on toggling (i, j); ``weigh(gain, t)`` is the log ratio."""
         dyad = _read(state, i, j, directed)
         a = state.adjacency
-        delta = _changes(stats, dyad, lambda: _cleared(a, i, j, directed), directed)
+        delta = _changes(stats, dyad, lambda: _cleared(a, i, j, directed), directed, n)
         accept = possible & (jnp.log(u_accept) < weigh(jnp.dot(theta, delta), dyad.t))
         return outcome(state, dyad, accept)
 
@@ -392,8 +406,7 @@ def toggle_moves(n: int, stats: tuple[Statistic, ...], directed: bool = False) -
         i, j = jnp.zeros((), jnp.int32), jnp.ones((), jnp.int32)
         return outcome(state, _read(state, i, j, directed), jnp.asarray(False))
 
-    def tie_no_tie(theta, state, z):
-        u = ndtr(z)
+    def tie_no_tie(theta, state, u):
         ties = state.ties
         remove = u[0] < 0.5
         i, j = _choose_dyad(state, u[1], remove)
@@ -409,8 +422,7 @@ def toggle_moves(n: int, stats: tuple[Statistic, ...], directed: bool = False) -
 
         return propose(theta, state, i, j, count > 0, u[2], weigh)
 
-    def toggle(theta, state, z):
-        u = ndtr(z)
+    def toggle(theta, state, u):
         m = jnp.clip(jnp.floor(u[0] * m_dyads), 0, m_dyads - 1).astype(jnp.int32)
         if directed:  # the ordered pairs i ≠ j, row by row
             i = m // (n - 1)
@@ -435,11 +447,12 @@ def run(
 ) -> ToggleState:
     """The state after one toggle per row of ``noise`` (``move`` one of ``moves``' toggles)."""
 
-    def body(carry, z):
+    def body(carry, u):
         state = lax.optimization_barrier(moves.apply(*carry))
-        return (state, move(theta, state, z)), None
+        return (state, move(theta, state, u)), None
 
-    state, pending = lax.scan(body, (state, moves.idle(state)), noise)[0]
+    uniforms = ndtr(noise)  # all at once: fewer small operations inside the loop
+    state, pending = lax.scan(body, (state, moves.idle(state)), uniforms)[0]
     return moves.apply(state, pending)
 
 
