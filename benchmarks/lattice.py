@@ -313,7 +313,8 @@ def part_a(settings: dict[str, Any]) -> dict[str, Any]:
     sw_given = jax.jit(sw_run)
     noise = random.normal(k_noise, (sweeps, n))
     sw_noise = random.normal(k_sw, (sw_updates, e + n))
-    start = jnp.where(random.bernoulli(k_start, 0.5, (n,)), 1.0, -1.0)
+    # strongly typed like the outputs, so that the second call does not trace again
+    start = jnp.where(random.bernoulli(k_start, 0.5, (n,)), 1.0, -1.0).astype(jnp.float32)
     state = {"zhat_given": start, "zhat_sites": start, "zhat_drawn": start, "sw": start}
     roll = NumpyRollSweep(side, coupling, rng)
     sub_given, sub_drawn = (NumpySublatticeSweep(side, coupling, rng) for _ in range(2))
