@@ -120,16 +120,15 @@ class ToggleState(NamedTuple):
 
 class Update(NamedTuple):
     """One toggle's outcome, to be written into the state: the dyad (i, j), its new value, the
-    change of A_ij (−1, 0 or 1), the entries (rows, slots, nodes) to write into ``partners``
-    (``position`` gets the inverse) and the new rows i and j of S (None without S)."""
+    change of A_ij (−1, 0 or 1), the entries to write into ``partners`` (``position`` gets the
+    inverse) as one (3, k) array of rows, slots and nodes, and the new rows i and j of S
+    (None without S)."""
 
     i: Array
     j: Array
     value: Array
     step: Array
-    list_rows: Array
-    list_slots: Array
-    list_nodes: Array
+    lists: Array
     shared_i: Array | None
     shared_j: Array | None
 
@@ -185,7 +184,7 @@ def _choose_dyad(state: ToggleState, u: Array, tie: Array) -> tuple[Array, Array
     total = cum[-1]
     rank = jnp.floor(u * total.astype(u.dtype)).astype(jnp.int32)
     rank = jnp.clip(rank, 0, jnp.maximum(total - 1, 0))
-    i = jnp.minimum(jnp.sum(cum <= rank), n - 1).astype(jnp.int32)
+    i = jnp.minimum(jnp.sum(cum <= rank, dtype=jnp.int32), n - 1)
     d = state.degrees[i]
     before = cum[i] - jnp.where(tie, d, n - 1 - d)
     slot = jnp.where(tie, rank - before, d + rank - before)
@@ -240,8 +239,9 @@ def _read(state: ToggleState, i: Array, j: Array, directed: bool) -> _Dyad:
     else:
         row_i, row_j = a[i], a[j]
         t = row_i[j]
-        row_i = row_i.at[j].set(0.0)
-        row_j = row_j.at[i].set(0.0)
+        nodes = jnp.arange(a.shape[0])
+        row_i = jnp.where(nodes == j, 0.0, row_i)  # elementwise: no copy of the row
+        row_j = jnp.where(nodes == i, 0.0, row_j)
     ti = t.astype(jnp.int32)
     return _Dyad(
         i,
@@ -354,13 +354,13 @@ def toggle_moves(n: int, stats: tuple[Statistic, ...], directed: bool = False) -
         moves = [_swap(state, i, j, step)]
         if not directed:
             moves.append(_swap(state, j, i, step))
-        lists = [jnp.concatenate(parts) for parts in zip(*moves, strict=True)]
+        lists = jnp.stack([jnp.concatenate(parts) for parts in zip(*moves, strict=True)])
         s_i = s_j = None
         if shared:
             ai, aj = dyad.row_i.astype(jnp.int32), dyad.row_j.astype(jnp.int32)
             s_i = dyad.shared_i + step * (aj + (nodes == i))
             s_j = dyad.shared_j + step * (ai + (nodes == j))
-        return Update(i, j, new, step, *lists, s_i, s_j)
+        return Update(i, j, new, step, lists, s_i, s_j)
 
     def propose(theta, state, i, j, possible, u_accept, weigh):
         """Metropolis–Hastings on toggling (i, j); ``weigh(gain, t)`` is the log ratio."""
@@ -381,7 +381,7 @@ def toggle_moves(n: int, stats: tuple[Statistic, ...], directed: bool = False) -
             a = state.adjacency.at[both, both[::-1]].set(new)
             change = change + step * (nodes == j)
             after = after + step * (nodes >= j)
-        r, q, w = update.list_rows, update.list_slots, update.list_nodes
+        r, q, w = update.lists
         partners = state.partners.at[r, q].set(w)
         position = state.position.at[r, w].set(q)
         s = state.shared
