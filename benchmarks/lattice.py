@@ -16,11 +16,13 @@ last line, one JSON object with every figure and the goal verdicts.
     inside the timed call (zhat: ``jax.random.normal`` in the jitted function; NumPy:
     ``Generator.random`` into a preallocated buffer), zhat with the field given per site (an
     array of N zeros: no threshold list shared by a colour class, so every noise value goes
-    through Φ), and zhat's Swendsen–Wang updates per second. Variants are timed in interleaved
-    rounds (the machine is shared); the goal uses each variant's best round (other work only
-    ever slows a call down, as in ``timeit``), and the medians are printed beside. A sanity
-    check compares the energy per site of both simulators after the rounds with Onsager's
-    infinite-lattice value.
+    through Φ), both on a batch of independent chains at once as the estimators run their
+    auxiliary chains (8; zhat: ``gibbs_sweeps`` with the chains on leading axes, and
+    ``jax.vmap`` of it; NumPy: the sublattice form on 3-D arrays), and zhat's Swendsen–Wang
+    updates per second. Variants are timed in interleaved rounds (the machine is shared); the
+    goal uses each variant's best round (other work only ever slows a call down, as in
+    ``timeit``), and the medians are printed beside. A sanity check compares the energy per
+    site of both simulators after the rounds with Onsager's infinite-lattice value.
 
 (b) An 8×8 free-boundary Ising lattice, zero field, coupling J ~ Uniform(0, 1); data drawn
     exactly by coupling from the past at J = 0.35 (fixed key). Exact oracle: the posterior of J
@@ -172,6 +174,7 @@ SETTINGS = {
     "full": {
         "rounds": 7,
         "sweeps_per_call": 20,
+        "batch_chains": 8,
         "sw_per_call": 5,
         "small": Budget(2, 300, 2500),
         "small_slice": Budget(2, 100, 200),
@@ -180,6 +183,7 @@ SETTINGS = {
     "quick": {
         "rounds": 3,
         "sweeps_per_call": 10,
+        "batch_chains": 4,
         "sw_per_call": 2,
         "small": Budget(1, 150, 300),
         "small_slice": Budget(1, 30, 60),
@@ -234,40 +238,48 @@ class NumpySublatticeSweep:
     Site (r, c) belongs to sublattice (r + c) mod 2 and is stored at column c // 2 of its row.
     Its up and down neighbours sit at the same stored column of the other sublattice; its left
     and right neighbours at the same column and at column k − 1 (sublattice 0 on even rows,
-    sublattice 1 on odd rows) or k + 1 (the other cases), periodic in k.
+    sublattice 1 on odd rows) or k + 1 (the other cases), periodic in k. With ``chains``, every
+    array has a leading axis of that many independent chains (the same operations, on 3-D
+    arrays).
     """
 
-    def __init__(self, side: int, coupling: float, rng: np.random.Generator) -> None:
+    def __init__(
+        self, side: int, coupling: float, rng: np.random.Generator, chains: int | None = None
+    ) -> None:
         if side % 2:
             raise ValueError("the sublattice form needs an even side")
         half = side // 2
+        lead = () if chains is None else (chains,)
         self.table = (1.0 / (1.0 + np.exp(-2.0 * coupling * np.arange(-4, 5)))).astype(np.float32)
-        start = rng.choice(np.array([-1, 1], np.int8), (side, side))
-        self.sides = (np.empty((side, half), np.int8), np.empty((side, half), np.int8))
+        start = rng.choice(np.array([-1, 1], np.int8), (*lead, side, side))
+        self.sides = (
+            np.empty((*lead, side, half), np.int8),
+            np.empty((*lead, side, half), np.int8),
+        )
         for r in range(side):
-            self.sides[0][r] = start[r, r % 2 :: 2]
-            self.sides[1][r] = start[r, 1 - r % 2 :: 2]
-        self.total = np.empty((side, half), np.int8)
-        self.prob = np.empty((side, half), np.float32)
-        self.up = np.empty((side, half), bool)
+            self.sides[0][..., r, :] = start[..., r, r % 2 :: 2]
+            self.sides[1][..., r, :] = start[..., r, 1 - r % 2 :: 2]
+        self.total = np.empty((*lead, side, half), np.int8)
+        self.prob = np.empty((*lead, side, half), np.float32)
+        self.up = np.empty((*lead, side, half), bool)
 
     def _neighbour_sum(self, other: np.ndarray, side: int) -> np.ndarray:
         t = self.total
-        t[1:] = other[:-1]
-        t[0] = other[-1]
-        t[:-1] += other[1:]
-        t[-1] += other[0]
+        t[..., 1:, :] = other[..., :-1, :]
+        t[..., 0, :] = other[..., -1, :]
+        t[..., :-1, :] += other[..., 1:, :]
+        t[..., -1, :] += other[..., 0, :]
         t += other
         even, odd = slice(0, None, 2), slice(1, None, 2)
         left, right = (even, odd) if side == 0 else (odd, even)
-        t[left, 1:] += other[left, :-1]
-        t[left, 0] += other[left, -1]
-        t[right, :-1] += other[right, 1:]
-        t[right, -1] += other[right, 0]
+        t[..., left, 1:] += other[..., left, :-1]
+        t[..., left, 0] += other[..., left, -1]
+        t[..., right, :-1] += other[..., right, 1:]
+        t[..., right, -1] += other[..., right, 0]
         return t
 
     def sweep(self, uniform: np.ndarray) -> None:
-        """One sweep; ``uniform`` (2, side, side/2) float32."""
+        """One sweep; ``uniform`` (2, [chains,] side, side/2) float32."""
         for side in (0, 1):
             mine, other = self.sides[side], self.sides[1 - side]
             total = self._neighbour_sum(other, side)
@@ -278,30 +290,34 @@ class NumpySublatticeSweep:
             mine -= 1
 
     def state(self) -> np.ndarray:
-        side = self.sides[0].shape[0]
-        s = np.empty((side, side), np.int8)
+        side = self.sides[0].shape[-2]
+        s = np.empty((*self.sides[0].shape[:-2], side, side), np.int8)
         for r in range(side):
-            s[r, r % 2 :: 2] = self.sides[0][r]
-            s[r, 1 - r % 2 :: 2] = self.sides[1][r]
+            s[..., r, r % 2 :: 2] = self.sides[0][..., r, :]
+            s[..., r, 1 - r % 2 :: 2] = self.sides[1][..., r, :]
         return s
 
 
 def part_a(settings: dict[str, Any]) -> dict[str, Any]:
     side, coupling = THROUGHPUT_SIDE, THROUGHPUT_COUPLING
-    sweeps, sw_updates, rounds = (
+    sweeps, sw_updates, rounds, chains = (
         settings["sweeps_per_call"],
         settings["sw_per_call"],
         settings["rounds"],
+        settings["batch_chains"],
     )
     nb = lattice.grid(side, side, "periodic")
     n, e = nb.num_sites, nb.num_edges
     h, h_sites, j = jnp.asarray(0.0), jnp.zeros((n,)), jnp.asarray(coupling)
     key = random.key(RUN_SEED)
-    k_noise, k_sw, k_start, k_draw = random.split(key, 4)
+    k_noise, k_sw, k_start, k_draw, k_batch = random.split(key, 5)
     rng = np.random.default_rng(RUN_SEED)
 
     gibbs_given = jax.jit(lambda s, z: lattice.gibbs_sweeps(nb, s, h, j, z))
     gibbs_sites = jax.jit(lambda s, z: lattice.gibbs_sweeps(nb, s, h_sites, j, z))
+    # independent chains at once, as the estimators run their auxiliary chains
+    gibbs_batched = jax.jit(jax.vmap(lambda s, z: lattice.gibbs_sweeps(nb, s, h, j, z)))
+    gibbs_chains = jax.jit(lambda s, z: lattice.gibbs_sweeps(nb, s, h, j, z))  # leading axes
     gibbs_drawn = jax.jit(
         lambda s, k: lattice.gibbs_sweeps(nb, s, h, j, random.normal(k, (sweeps, n)))
     )
@@ -316,17 +332,36 @@ def part_a(settings: dict[str, Any]) -> dict[str, Any]:
     # strongly typed like the outputs, so that the second call does not trace again
     start = jnp.where(random.bernoulli(k_start, 0.5, (n,)), 1.0, -1.0).astype(jnp.float32)
     state = {"zhat_given": start, "zhat_sites": start, "zhat_drawn": start, "sw": start}
+    batch_noise = random.normal(k_batch, (chains, sweeps, n))
+    state["zhat_batched"] = jnp.broadcast_to(start, (chains, n))
+    state["zhat_chains"] = state["zhat_batched"]
     roll = NumpyRollSweep(side, coupling, rng)
     sub_given, sub_drawn = (NumpySublatticeSweep(side, coupling, rng) for _ in range(2))
     roll_uniforms = rng.random((sweeps, side, side), dtype=np.float32)
     sub_uniforms = rng.random((sweeps, 2, side, side // 2), dtype=np.float32)
     sub_buffer = np.empty((2, side, side // 2), np.float32)
+    sub_batched = NumpySublatticeSweep(side, coupling, rng, chains)
+    batch_uniforms = rng.random((sweeps, 2, chains, side, side // 2), dtype=np.float32)
 
     def run_zhat_given() -> None:
         state["zhat_given"] = jax.block_until_ready(gibbs_given(state["zhat_given"], noise))
 
     def run_zhat_sites() -> None:
         state["zhat_sites"] = jax.block_until_ready(gibbs_sites(state["zhat_sites"], noise))
+
+    def run_zhat_batched() -> None:
+        state["zhat_batched"] = jax.block_until_ready(
+            gibbs_batched(state["zhat_batched"], batch_noise)
+        )
+
+    def run_zhat_chains() -> None:
+        state["zhat_chains"] = jax.block_until_ready(
+            gibbs_chains(state["zhat_chains"], batch_noise)
+        )
+
+    def run_sub_batched() -> None:
+        for t in range(sweeps):
+            sub_batched.sweep(batch_uniforms[t])
 
     draw_count = [0]
 
@@ -358,6 +393,9 @@ def part_a(settings: dict[str, Any]) -> dict[str, Any]:
         "numpy_roll_uniforms_given": (run_roll, sweeps * n),
         "numpy_sublattice_uniforms_given": (run_sub_given, sweeps * n),
         "numpy_sublattice_uniforms_drawn": (run_sub_drawn, sweeps * n),
+        "zhat_gibbs_chains_noise_given": (run_zhat_chains, chains * sweeps * n),
+        "zhat_gibbs_batched_noise_given": (run_zhat_batched, chains * sweeps * n),
+        "numpy_sublattice_batched_uniforms_given": (run_sub_batched, chains * sweeps * n),
         "zhat_swendsen_wang": (run_sw, sw_updates),
     }
     clock = CompileClock()
@@ -390,6 +428,7 @@ def part_a(settings: dict[str, Any]) -> dict[str, Any]:
         "side": side,
         "coupling": coupling,
         "sweeps_per_call": sweeps,
+        "batch_chains": chains,
         "swendsen_wang_updates_per_call": sw_updates,
         "rounds": rounds,
         "compile_seconds": compile_seconds,
@@ -405,6 +444,14 @@ def part_a(settings: dict[str, Any]) -> dict[str, Any]:
         "zhat_over_numpy_median": median["zhat_gibbs_noise_given"] / median[fastest_given],
         "zhat_over_numpy_roll": ratio("zhat_gibbs_noise_given", "numpy_roll_uniforms_given"),
         "zhat_site_field_over_numpy": ratio("zhat_gibbs_noise_given_site_field", fastest_given),
+        "zhat_over_numpy_batched": ratio(
+            "zhat_gibbs_chains_noise_given", "numpy_sublattice_batched_uniforms_given"
+        ),
+        "zhat_over_numpy_batched_median": median["zhat_gibbs_chains_noise_given"]
+        / median["numpy_sublattice_batched_uniforms_given"],
+        "zhat_vmap_over_numpy_batched": ratio(
+            "zhat_gibbs_batched_noise_given", "numpy_sublattice_batched_uniforms_given"
+        ),
         "zhat_over_numpy_random_numbers_drawn": ratio(
             "zhat_gibbs_noise_drawn", "numpy_sublattice_uniforms_drawn"
         ),
@@ -428,6 +475,13 @@ def print_part_a(a: dict[str, Any]) -> None:
         "numpy_roll_uniforms_given": "NumPy masks + np.roll (uniforms drawn in advance)",
         "numpy_sublattice_uniforms_given": "NumPy sublattice arrays (uniforms in advance)",
         "numpy_sublattice_uniforms_drawn": "NumPy sublattice arrays + Generator.random",
+        "zhat_gibbs_chains_noise_given": (
+            f"zhat gibbs_sweeps, {a['batch_chains']} chains as leading axes"
+        ),
+        "zhat_gibbs_batched_noise_given": f"zhat jax.vmap over {a['batch_chains']} chains",
+        "numpy_sublattice_batched_uniforms_given": (
+            f"NumPy sublattice, {a['batch_chains']} chains as 3-D arrays"
+        ),
     }
     for name, label in labels.items():
         print(
@@ -453,6 +507,11 @@ def print_part_a(a: dict[str, Any]) -> None:
         f"{a['zhat_over_numpy_roll']:.2f}x; random numbers drawn inside the call on both "
         f"sides: {a['zhat_over_numpy_random_numbers_drawn']:.2f}x; field per site: "
         f"{a['zhat_site_field_over_numpy']:.2f}x"
+    )
+    print(
+        f"  {a['batch_chains']} chains at once, zhat / NumPy on the same batch: "
+        f"{a['zhat_over_numpy_batched']:.2f}x (medians: {a['zhat_over_numpy_batched_median']:.2f}x)"
+        f"; with jax.vmap instead of leading axes: {a['zhat_vmap_over_numpy_batched']:.2f}x"
     )
 
 

@@ -547,6 +547,9 @@ def test_fast_sweep_under_vmap_and_leading_axes(key, graph):
     one_by_one = jnp.stack([lattice.gibbs_sweeps(nb, s[c], h, j, z[c]) for c in range(3)])
     batched = jax.vmap(lambda s, z: lattice.gibbs_sweeps(nb, s, h, j, z))(s, z)
     np.testing.assert_array_equal(batched, one_by_one)
+    np.testing.assert_array_equal(lattice.gibbs_sweeps(nb, s, h, j, z), one_by_one)
+    with pytest.raises(ValueError, match="needs shape"):
+        lattice.gibbs_sweeps(nb, s, h, j, z[0])
     plan = spin_sweep(nb, h, j)
     state = plan.to_state(s)  # (3, ...) states, (3, 4, ...) levels
     levels = plan.to_noise(z)
