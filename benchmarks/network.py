@@ -22,6 +22,11 @@ zhat's rate includes computing S = A A at the start of each call) and is waited 
 ``jax.block_until_ready``; the best and the median of the repeats are reported. The machine is
 shared: the load average is printed, and the speed-ups are ratios measured in the same run.
 
+Part "samplers" (:mod:`_network_samplers`): effective samples per second of
+``pseudo_marginal_gibbs``, the approximate exchange algorithm (double Metropolis–Hastings) and
+standard pseudo-marginal Metropolis–Hastings on an invented 50-member club, same data, same
+estimator, timed without compilation.
+
     .venv/bin/python benchmarks/network.py [--quick]
 
 ``--quick`` makes fewer toggles per call and fewer repeats. Output: a table and, as the last
@@ -48,6 +53,7 @@ import numpy as np  # noqa: E402
 from jax import lax  # noqa: E402
 from jax.scipy.special import ndtr  # noqa: E402
 
+import _network_samplers as samplers_part  # noqa: E402
 from _common import load_average  # noqa: E402
 from zhat.families import network  # noqa: E402
 from zhat.families.network.toggles import toggle_simulators  # noqa: E402
@@ -264,10 +270,11 @@ def main(argv: list[str] | None = None) -> None:
         f"device(s), float64; load average {load_before} ({os.cpu_count()} cores)\n"
     )
     started = time.time()
-    # The parts of this benchmark, run in order: (name, run, print). part_samplers is to be
-    # added here by its author.
+    settings = {**settings, "samplers": samplers_part.SETTINGS[mode]}
+    # The parts of this benchmark, run in order: (name, run, print).
     parts = [
         ("toggles", part_toggles, print_part_toggles),
+        ("samplers", samplers_part.part_samplers, samplers_part.print_part_samplers),
     ]
     results: dict[str, Any] = {}
     elapsed: dict[str, float] = {}

@@ -112,13 +112,14 @@ class ReferenceCache:
             raise ValueError(f"reference must be 'pseudo_likelihood' or a dict; got {reference!r}.")
         self.reference = reference
         self._fits: dict[tuple[int, bytes], dict[str, Array]] = {}
+        self._checked: set[tuple] = set()
 
     def __call__(
         self, dist: UnnormalizedDistribution, data: Array, simulator: str | None = None
     ) -> dict[str, Array]:
-        """θ̂ for ``dist`` and ``data``; when the estimator draws from ``simulator`` (not a
-        perfect sampler), a new pseudo-likelihood fit is also checked for degeneracy: a few
-        simulator chains at θ̂ must not collapse (:mod:`zhat.model.degeneracy`)."""
+        """θ̂ for ``dist`` and ``data``. When the estimator draws from ``simulator`` (not a
+        perfect sampler), θ̂ is also checked once for degeneracy: a few simulator chains there
+        must not collapse (:mod:`zhat.model.degeneracy`)."""
         if isinstance(self.reference, Mapping):
             unknown = sorted(set(self.reference) - set(dist.params))
             if unknown:
@@ -126,7 +127,9 @@ class ReferenceCache:
                     f"reference has parameters {unknown} that family '{dist.family.name}' does "
                     f"not have; its parameters are {sorted(dist.params)}."
                 )
-            return {**dist.params, **{k: jnp.asarray(v) for k, v in self.reference.items()}}
+            given = {k: jnp.asarray(v) for k, v in self.reference.items()}
+            self._check(dist, data, given, simulator, "the estimator's reference point")
+            return {**dist.params, **given}
         if isinstance(data, jax.core.Tracer):
             raise ValueError(
                 "The pseudo-likelihood reference needs concrete data, but the data are traced "
@@ -137,16 +140,24 @@ class ReferenceCache:
         key = (id(dist.family), np.asarray(data).tobytes(), tuple(sorted(held.items())))
         if key not in self._fits:
             fit = maximum_pseudo_likelihood(dist, data)
-            if simulator is not None:
-                with jax.ensure_compile_time_eval():
-                    simulate_and_check(
-                        dist.with_params(**{k: fit[k] for k in fitted}),
-                        data,
-                        "the estimator's reference point (maximum pseudo-likelihood)",
-                        simulator=simulator,
-                    )
             self._fits[key] = {k: fit[k] for k in fitted}
+        where = "the estimator's reference point (maximum pseudo-likelihood)"
+        self._check(dist, data, self._fits[key], simulator, where)
         return {**dist.params, **self._fits[key]}
+
+    def _check(self, dist, data, point: dict[str, Array], simulator: str | None, where: str):
+        if simulator is None or dist.family.degeneracy is None:
+            return
+        if any(isinstance(v, jax.core.Tracer) for v in jax.tree.leaves((data, point))):
+            return
+        key = (id(dist.family), np.asarray(data).tobytes(), simulator) + tuple(
+            (k, np.asarray(v).tobytes()) for k, v in sorted(point.items())
+        )
+        if key in self._checked:
+            return
+        with jax.ensure_compile_time_eval():
+            simulate_and_check(dist.with_params(**point), data, where, simulator=simulator)
+        self._checked.add(key)
 
 
 def reference_params(

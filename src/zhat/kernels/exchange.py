@@ -115,13 +115,14 @@ class Exchange(ModelKernel):
     def init(self, rng_key, num_warmup, init_params, model_args, model_kwargs):
         state = super().init(rng_key, num_warmup, init_params, model_args, model_kwargs)
         self._check_ownership(state, model_args, model_kwargs or {})
-        if not self.exact:
+        if not self.exact and init_params is not None:
             self._check_degeneracy(state, model_args, model_kwargs or {})
         return state
 
     def _check_degeneracy(self, state, model_args: tuple, model_kwargs: dict) -> None:
-        """Stop before sampling when simulator draws at the start collapse (a degenerate model,
-        :mod:`zhat.model.degeneracy`); skipped when the start is traced."""
+        """Stop before sampling when simulator draws at a start the user gave collapse (a
+        degenerate model, :mod:`zhat.model.degeneracy`); skipped when the start is traced.
+        A random start is not checked: it says nothing about the posterior."""
         z = jax.tree.map(lambda v: v[0], state.z) if state.logdensity.ndim else state.z
         if any(isinstance(v, jax.core.Tracer) for v in jax.tree.leaves(z)):
             return

@@ -35,7 +35,7 @@ from zhat.families.network.graph import (
 )
 from zhat.families.network.statistics import Statistic, change_statistics, statistics
 from zhat.families.network.toggles import toggle_simulators
-from zhat.model.unnormalized import Family
+from zhat.model.unnormalized import Degeneracy, Family
 
 Array = jax.Array
 
@@ -107,19 +107,35 @@ def _network_family(
             )
 
     names = ", ".join(s.name for s in stats)
+    # the family is cached and may first be built while a model is traced: its constant
+    # arrays must be concrete, not tracers of that trace
+    with jax.ensure_compile_time_eval():
+        simulators = toggle_simulators(n, stats, toggles, directed=directed)
     return Family(
         name=f"random graph, {'directed' if directed else 'undirected'} ({names})",
         log_potential=log_potential,
         support=_Graphs(),
         event_shape=(n, n),
         statistics=lambda x: statistics(stats, _matrix(x, n), directed=directed),
-        simulators=toggle_simulators(n, stats, toggles, directed=directed),
+        simulators=simulators,
         perfect_sampler=None,
         default_estimator=None,
         validate=validate,
         pseudo_log_likelihood=pseudo,
         free_parameters=("coefficients",),
         structure=NetworkStructure(n, stats, directed=directed),
+        degeneracy=Degeneracy(
+            fill=lambda x: jnp.sum(_matrix(x, n)) / (n * (n - 1)),  # tie density
+            empty="the empty graph",
+            full="the complete graph",
+            advice=(
+                "This is common with triangles or k-stars, whose simulations jump between "
+                "nearly empty and nearly complete graphs. Replace them with the geometrically "
+                "weighted forms (network.weighted_shared_partners(decay), "
+                "network.weighted_degrees(decay)), or start from / give a reference point "
+                "closer to the data, e.g. zhat.fit.maximum_likelihood."
+            ),
+        ),
     )
 
 
