@@ -294,3 +294,65 @@ def test_bad_inputs_name_the_fix():
         step.step({"coefficients": jnp.zeros(2)}, a, jnp.zeros((10, 3)))
     with pytest.raises(TypeError, match=r"directed must be True or False; got 'yes'"):
         toggle_simulators(4, stats, 10, directed="yes")
+
+
+@pytest.mark.parametrize("simulator", ["tie_no_tie", "toggle"])
+def test_vmapped_chains_equal_the_chains_run_one_by_one(key, simulator):
+    """Under ``jax.vmap`` (the custom batching rule that runs the chains in turn), batched or
+    broadcast coefficients, start graphs and noise, and nested ``vmap``, give exactly the draws
+    of the single-chain simulator called once per chain."""
+    n, chains = 12, 3
+    stats = undirected_statistics(n)
+    step = toggle_simulators(n, stats, 150)[simulator]
+    k_graph, k_noise, k_theta = jax.random.split(key, 3)
+    starts = jnp.stack([random_graph(k, n, 0.3) for k in jax.random.split(k_graph, chains)])
+    noise = jax.random.normal(k_noise, (chains, *step.noise_shape(starts[0])))
+    theta = jnp.asarray(np.linspace(-0.2, 0.1, len(stats))).at[0].set(-1.0)
+    thetas = theta[None, :] + 0.1 * jax.random.normal(k_theta, (chains, len(stats)))
+
+    def one(t, a, z):
+        return step.step({"coefficients": t}, a, z)
+
+    single = jax.jit(one)
+    cases = [
+        (
+            jax.vmap(one, (0, 0, 0))(thetas, starts, noise),
+            [(thetas[c], starts[c], noise[c]) for c in range(chains)],
+        ),
+        (
+            jax.vmap(one, (None, None, 0))(theta, starts[0], noise),
+            [(theta, starts[0], noise[c]) for c in range(chains)],
+        ),
+        (
+            jax.jit(jax.vmap(one, (None, 0, 0)))(theta, starts, noise),
+            [(theta, starts[c], noise[c]) for c in range(chains)],
+        ),
+    ]
+    for batched, calls in cases:
+        expected = jnp.stack([single(*args) for args in calls])
+        np.testing.assert_array_equal(batched, expected)
+    nested = jax.vmap(jax.vmap(one, (None, 0, 0)), (0, None, None))(thetas[:2], starts, noise)
+    for t in range(2):
+        for c in range(chains):
+            np.testing.assert_array_equal(nested[t, c], single(thetas[t], starts[c], noise[c]))
+
+
+def test_toggles_without_partner_lists_take_the_same_path(key):
+    """``toggle`` on the state without running sums and partner lists (what its simulator
+    carries) makes exactly the moves it makes on the full state; ``tie_no_tie`` refuses it."""
+    n = 16
+    stats = undirected_statistics(n)
+    full, bare = toggle_moves(n, stats), toggle_moves(n, stats, lists=False)
+    theta = jnp.asarray(np.linspace(-0.3, 0.2, len(stats))).at[0].set(-1.2)
+    k_graph, k_noise = jax.random.split(key)
+    a = random_graph(k_graph, n, 0.25)
+    noise = jax.random.normal(k_noise, (2000, 2))
+    with_lists = run(full, full.toggle, theta, full.init(a), noise)
+    without = run(bare, bare.toggle, theta, bare.init(a), noise)
+    assert without.partners is None and without.cumulative is None
+    np.testing.assert_array_equal(without.adjacency, with_lists.adjacency)
+    np.testing.assert_array_equal(without.degrees, with_lists.degrees)
+    np.testing.assert_array_equal(without.shared, with_lists.shared)
+    assert int(without.ties) == int(with_lists.ties)
+    with pytest.raises(ValueError, match="tie_no_tie.*lists=True"):
+        bare.tie_no_tie(theta, bare.init(a), jnp.full(3, 0.5))

@@ -61,6 +61,20 @@ on the adjacency matrix with the dyad cleared (O(n) or more, as that statistic c
 
 The loop writes each toggle's outcome into the state at the start of the next toggle, before
 any read (see :class:`ToggleMoves`), so that XLA updates the matrices in place.
+
+Only what a simulator reads is carried: the running sums and the partner lists serve the
+choice of a tie or an empty dyad, so ``toggle``, which picks its dyad directly from its
+uniform, runs without them (``toggle_moves(..., lists=False)``); S is carried only for the
+shared-partner statistics. XLA's CPU runtime runs each operation of the loop body in turn at a
+fixed cost of tens of nanoseconds, so a toggle costs about that times the number of operations
+left after fusion, a few dozen here.
+
+Many chains. Under ``jax.vmap`` the simulators run the chains one after another, each the
+single-chain loop (a custom batching rule, ``jax.custom_batching.custom_vmap``): batched, every
+row read or write of a chain's matrices would become a gather or scatter across the chains,
+which costs more per toggle than the single chain's whole toggle. The result is the same draw
+either way. The output is a step function of θ, the graph and the noise, so the simulators pass
+no derivative through (``lax.stop_gradient`` on their inputs).
 """
 
 from __future__ import annotations
@@ -158,19 +172,20 @@ def _needs_shared(stats: tuple[Statistic, ...], directed: bool) -> bool:
     return not directed and any(s.kind in SHARED_KINDS for s in stats)
 
 
-def _init(a: Array, shared: bool, directed: bool) -> ToggleState:
+def _init(a: Array, shared: bool, directed: bool, lists: bool) -> ToggleState:
     n = a.shape[0]
     degrees = jnp.rint(jnp.sum(a, axis=1)).astype(jnp.int32)
     total = jnp.sum(degrees)
     ties = total if directed else total // 2
-    # sort key: neighbours 0, other nodes 1, the node itself 2 (stable: by node number within)
-    key = (a < 0.5).astype(jnp.int32) + jnp.eye(n, dtype=jnp.int32)
-    partners = jnp.argsort(key, axis=1, stable=True).astype(jnp.int32)
-    position = jnp.argsort(partners, axis=1).astype(jnp.int32)
+    cumulative = partners = position = None
+    if lists:
+        # sort key: neighbours 0, other nodes 1, the node itself 2 (stable: by node number)
+        key = (a < 0.5).astype(jnp.int32) + jnp.eye(n, dtype=jnp.int32)
+        partners = jnp.argsort(key, axis=1, stable=True).astype(jnp.int32)
+        position = jnp.argsort(partners, axis=1).astype(jnp.int32)
+        cumulative = jnp.cumsum(degrees)
     s = jnp.rint(a @ a).astype(jnp.int32) if shared else None
-    return ToggleState(
-        a, degrees, jnp.cumsum(degrees), partners, position, s, ties.astype(jnp.int32)
-    )
+    return ToggleState(a, degrees, cumulative, partners, position, s, ties.astype(jnp.int32))
 
 
 def _choose_dyad(state: ToggleState, u: Array, tie: Array) -> tuple[Array, Array]:
@@ -340,8 +355,12 @@ def _swap(state: ToggleState, v: Array, w: Array, step: Array):
     return jnp.stack([v, v]), jnp.stack([p, q]), jnp.stack([x, w])
 
 
-def toggle_moves(n: int, stats: tuple[Statistic, ...], directed: bool = False) -> ToggleMoves:
-    """The single toggles of a model on n nodes (see the module docstring)."""
+def toggle_moves(
+    n: int, stats: tuple[Statistic, ...], directed: bool = False, lists: bool = True
+) -> ToggleMoves:
+    """The single toggles of a model on n nodes (see the module docstring). With ``lists``
+    false the state carries no running sums and no partner lists (``cumulative``,
+    ``partners`` and ``position`` are None): enough for ``toggle``, not for ``tie_no_tie``."""
     shared = _needs_shared(stats, directed)
     m_dyads = n * (n - 1) if directed else n * (n - 1) // 2
     rows, cols = (jnp.asarray(v, jnp.int32) for v in np.triu_indices(n, k=1))
@@ -351,16 +370,18 @@ def toggle_moves(n: int, stats: tuple[Statistic, ...], directed: bool = False) -
         i, j, t = dyad.i, dyad.j, dyad.t
         new = jnp.where(accept, 1.0 - t, t)
         step = (new - t).astype(jnp.int32)
-        moves = [_swap(state, i, j, step)]
-        if not directed:
-            moves.append(_swap(state, j, i, step))
-        lists = jnp.stack([jnp.concatenate(parts) for parts in zip(*moves, strict=True)])
+        entries = None
+        if lists:
+            moves = [_swap(state, i, j, step)]
+            if not directed:
+                moves.append(_swap(state, j, i, step))
+            entries = jnp.stack([jnp.concatenate(parts) for parts in zip(*moves, strict=True)])
         s_i = s_j = None
         if shared:
             ai, aj = dyad.row_i.astype(jnp.int32), dyad.row_j.astype(jnp.int32)
             s_i = dyad.shared_i + step * (aj + (nodes == i))
             s_j = dyad.shared_j + step * (ai + (nodes == j))
-        return Update(i, j, new, step, lists, s_i, s_j)
+        return Update(i, j, new, step, entries, s_i, s_j)
 
     def propose(theta, state, i, j, possible, u_accept, weigh):
         """Metropolis–Hastings on toggling (i, j); ``weigh(gain, t)`` is the log ratio."""
@@ -381,9 +402,12 @@ def toggle_moves(n: int, stats: tuple[Statistic, ...], directed: bool = False) -
             a = state.adjacency.at[both, both[::-1]].set(new)
             change = change + step * (nodes == j)
             after = after + step * (nodes >= j)
-        r, q, w = update.lists
-        partners = state.partners.at[r, q].set(w)
-        position = state.position.at[r, w].set(q)
+        cumulative, partners, position = state.cumulative, state.partners, state.position
+        if lists:
+            r, q, w = update.lists
+            partners = partners.at[r, q].set(w)
+            position = position.at[r, w].set(q)
+            cumulative = cumulative + after
         s = state.shared
         if shared:  # S stays symmetric: the new columns i, j are the new rows
             ri, rj = update.shared_i, update.shared_j
@@ -395,7 +419,7 @@ def toggle_moves(n: int, stats: tuple[Statistic, ...], directed: bool = False) -
         return ToggleState(
             a,
             state.degrees + change,
-            state.cumulative + after,
+            cumulative,
             partners,
             position,
             s,
@@ -407,6 +431,8 @@ def toggle_moves(n: int, stats: tuple[Statistic, ...], directed: bool = False) -
         return outcome(state, _read(state, i, j, directed), jnp.asarray(False))
 
     def tie_no_tie(theta, state, u):
+        if not lists:
+            raise ValueError("tie_no_tie chooses ties from the partner lists; use lists=True.")
         ties = state.ties
         remove = u[0] < 0.5
         i, j = _choose_dyad(state, u[1], remove)
@@ -435,7 +461,7 @@ def toggle_moves(n: int, stats: tuple[Statistic, ...], directed: bool = False) -
 
         return propose(theta, state, i, j, jnp.asarray(True), u[1], weigh)
 
-    return ToggleMoves(lambda a: _init(a, shared, directed), tie_no_tie, toggle, apply, idle)
+    return ToggleMoves(lambda a: _init(a, shared, directed, lists), tie_no_tie, toggle, apply, idle)
 
 
 def run(
@@ -456,6 +482,27 @@ def run(
     return moves.apply(state, pending)
 
 
+def _chains_in_turn(simulate: Callable[[Array, Array, Array], Array]):
+    """``simulate(theta, a, noise)`` whose ``jax.vmap`` runs the chains one after another
+    (``lax.map``, each chain the single-chain loop) instead of one loop over batched state.
+
+    Batched, each row read and each write of a chain's matrices becomes a gather or scatter
+    across the chains, dearer per toggle than the whole single-chain toggle; run in turn, the
+    chains keep the single-chain rate. Unbatched arguments are broadcast; nested ``vmap``
+    nests the maps."""
+    f = jax.custom_batching.custom_vmap(simulate)
+
+    @f.def_vmap
+    def rule(axis_size, in_batched, *args):
+        args = tuple(
+            x if b else jnp.broadcast_to(x, (axis_size, *jnp.shape(x)))
+            for x, b in zip(args, in_batched, strict=True)
+        )
+        return lax.map(lambda xs: f(*xs), args), True
+
+    return f
+
+
 def toggle_simulators(
     n: int, stats: tuple[Statistic, ...], toggles: int, directed: bool = False
 ) -> dict[str, Transition]:
@@ -464,11 +511,18 @@ def toggle_simulators(
     if not isinstance(directed, (bool, np.bool_)):
         raise TypeError(f"directed must be True or False; got {directed!r}.")
     stats = tuple(stats)
-    moves = toggle_moves(n, stats, bool(directed))
+    by_name = {
+        "tie_no_tie": toggle_moves(n, stats, bool(directed)),
+        "toggle": toggle_moves(n, stats, bool(directed), lists=False),
+    }
 
     def transition(name):
+        moves = by_name[name]
         move = getattr(moves, name)
         width = NOISE_WIDTH[name]
+        simulate = _chains_in_turn(
+            lambda theta, a, noise: run(moves, move, theta, moves.init(a), noise).adjacency
+        )
 
         def step(params, x, noise):
             theta = jnp.asarray(params["coefficients"], jnp.result_type(float))
@@ -483,8 +537,9 @@ def toggle_simulators(
                     f"the {name} simulator takes noise of shape ({toggles}, {width}) (toggles, "
                     f"noise per toggle); got {noise.shape}. Use noise_shape(x)."
                 )
-            state = run(moves, move, theta, moves.init(_matrix(x, n)), noise)
-            return state.adjacency.reshape(jnp.shape(x)).astype(jnp.result_type(x))
+            # the graph is a step function of its inputs: no derivative flows through it
+            a = simulate(*(lax.stop_gradient(v) for v in (theta, _matrix(x, n), noise)))
+            return a.reshape(jnp.shape(x)).astype(jnp.result_type(x))
 
         return Transition(step, lambda x: (toggles, width))
 
