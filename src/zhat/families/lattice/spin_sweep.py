@@ -18,8 +18,9 @@ Three things make the sweep cheap without changing what it computes:
   v_0 < v_1 < … < v_{K−1} and g = sign(J) (+1 for J = 0). The threshold
   t_j = Φ⁻¹(σ(2 (h + J g v_j))) increases with j, and Φ is increasing, so
   U < σ(2 (h + J n)) ⇔ z < t_{j(g n)} ⇔ g n ≥ v_0 + step · #{j : z ≥ t_j}.
-  Each noise value is turned once into that small integer (its *level*); the sweep itself
-  then only adds neighbour spins and compares integers. With a field that is one number per
+  Each noise value is turned once into that small integer (its *level*, counted by
+  bisection over the t_j); the sweep itself then only adds neighbour spins and compares
+  integers. With a field that is one number per
   colour class the K thresholds are computed once in normal space and no site needs Φ (the
   same idea as a precomputed table of conditional probabilities, common practice); with a
   field per site the comparison is in probability space, with U = Φ(z) and the K
@@ -29,9 +30,11 @@ Three things make the sweep cheap without changing what it computes:
   order — the order of the noise, so the noise needs no reordering. A site's up and down
   neighbours sit one row (cols/2 entries) before and after it in the other array, its left
   and right neighbours at the same entry and at the entry before or after it (which one
-  depends on the row's parity). Each array carries a halo of one row and one entry at both
-  ends (zeros on a free grid, the wrapped values on a torus), so every neighbour is a
-  contiguous slice and a half-sweep is one fused loop over the sites it updates.
+  depends on the row's parity; at the ends of a row, a select takes the wrapped entry on a
+  torus and 0 on a free grid). Each array carries a halo of one row and one entry at both
+  ends (zeros on a free grid, the wrapped values on a torus, refreshed after each update),
+  so every neighbour is a contiguous slice and a half-sweep is one fused loop, written in
+  place, over the sites it updates.
 - **One pass per block.** :func:`gibbs_sweeps` turns the whole (T, N) noise block into
   levels before the loop over sweeps.
 """
