@@ -8,11 +8,15 @@ weighted_degrees(0.5) and weighted_shared_partners(0.5), coefficients (−3.5, 0
 Part "toggles": Metropolis–Hastings toggles per second of the two simulators ``tie_no_tie`` and
 ``toggle`` (:mod:`zhat.families.network.toggles`), each
 
-1. zhat, one chain: O(n) per toggle (degrees, partner lists and S = A A carried and updated),
-2. zhat, vmapped over 8 chains (the rate counts the toggles of all chains),
-3. zhat, 8 chains split over the CPU devices (``jax.pmap``), each device running its chains in
+1. zhat, one chain: O(n) per toggle (degrees, S = A A and, for ``tie_no_tie``, the partner
+   lists carried and updated),
+2. zhat, ``jax.vmap`` over 8 chains (the rate counts the toggles of all chains); the simulators'
+   batching rule runs the chains in turn, each the single-chain loop,
+3. zhat, the same toggle loop vmapped over 8 chains with the state batched (what ``jax.vmap``
+   made of the loop before the batching rule: every row read and write a gather or scatter),
+4. zhat, 8 chains split over the CPU devices (``jax.pmap``), each device running its chains in
    turn (``lax.map``); with 2 cores this is the use of both,
-4. plain reference, one chain: the former implementation (copied below as
+5. plain reference, one chain: the former implementation (copied below as
    ``plain_simulators``): each toggle scans all dyads to choose a tie, O(n²), and computes
    the shared-partner change statistic from the adjacency matrix, O(n²).
 
@@ -27,10 +31,10 @@ Part "samplers" (:mod:`_network_samplers`): effective samples per second of
 standard pseudo-marginal Metropolis–Hastings on an invented 50-member club, same data, same
 estimator, timed without compilation.
 
-    .venv/bin/python benchmarks/network.py [--quick]
+    .venv/bin/python benchmarks/network.py [--quick] [--part toggles|samplers]
 
-``--quick`` makes fewer toggles per call and fewer repeats. Output: a table and, as the last
-line, one JSON object with every figure.
+``--quick`` makes fewer toggles per call and fewer repeats; ``--part`` runs one part only.
+Output: a table and, as the last line, one JSON object with every figure.
 """
 
 from __future__ import annotations
@@ -56,7 +60,7 @@ from jax.scipy.special import ndtr  # noqa: E402
 import _network_samplers as samplers_part  # noqa: E402
 from _common import load_average  # noqa: E402
 from zhat.families import network  # noqa: E402
-from zhat.families.network.toggles import toggle_simulators  # noqa: E402
+from zhat.families.network.toggles import run, toggle_moves, toggle_simulators  # noqa: E402
 from zhat.model.unnormalized import Transition  # noqa: E402
 
 Array = jax.Array
@@ -158,9 +162,23 @@ def rates(fn, args: tuple, toggles: int, repeats: int) -> dict[str, Any]:
     }
 
 
+def batched_state_simulator(stats: tuple, name: str) -> Any:
+    """zhat's toggle loop for one chain, ``(params, x, noise) -> x``, without the simulators'
+    batching rule: under ``jax.vmap`` its state is batched (same draws as the simulator)."""
+    moves = toggle_moves(MEMBERS, stats, lists=name == "tie_no_tie")
+    move = getattr(moves, name)
+
+    def step(params, x, noise):
+        theta = jnp.asarray(params["coefficients"], jnp.result_type(float))
+        return run(moves, move, theta, moves.init(x), noise).adjacency
+
+    return step
+
+
 def part_toggles(settings: dict[str, Any]) -> dict[str, Any]:
-    """Toggles per second of zhat's samplers (one chain, vmapped chains, chains over the CPU
-    devices) and of the plain reference (one chain), on the club network."""
+    """Toggles per second of zhat's samplers (one chain, vmapped chains in turn and with
+    batched state, chains over the CPU devices) and of the plain reference (one chain), on the
+    club network."""
     a = jnp.asarray(club_graph())
     stats = club_statistics()
     params = {"coefficients": jnp.asarray(COEFFICIENTS)}
@@ -182,9 +200,13 @@ def part_toggles(settings: dict[str, Any]) -> dict[str, Any]:
         starts = jnp.broadcast_to(a, (chains, *a.shape))
         single = jax.jit(step)
         vmapped = jax.jit(jax.vmap(step, in_axes=(None, 0, 0)))
+        batched = jax.jit(jax.vmap(batched_state_simulator(stats, name), in_axes=(None, 0, 0)))
         row = {
             "one_chain": rates(single, (params, a, z_one), toggles, repeats),
             "vmapped": rates(vmapped, (params, starts, z_many), chains * toggles, repeats),
+            "vmapped_batched_state": rates(
+                batched, (params, starts, z_many), chains * toggles, repeats
+            ),
         }
         if per_device is not None and devices > 1:
 
@@ -203,8 +225,12 @@ def part_toggles(settings: dict[str, Any]) -> dict[str, Any]:
             jax.jit(plain[name].step), (params, a, z_plain), plain_toggles, repeats
         )
         final = row["one_chain"].pop("output")
+        row["batched_state_equals_vmapped"] = bool(
+            jnp.array_equal(row["vmapped"]["output"], row["vmapped_batched_state"]["output"])
+        )
         for v in row.values():
-            v.pop("output", None)
+            if isinstance(v, dict):
+                v.pop("output", None)
         row["final_density"] = float(jnp.sum(final) / (MEMBERS * (MEMBERS - 1)))
         row["one_chain_over_plain"] = row["one_chain"]["best"] / row["plain"]["best"]
         row["vmapped_over_plain"] = row["vmapped"]["best"] / row["plain"]["best"]
@@ -239,6 +265,7 @@ def print_part_toggles(result: dict[str, Any]) -> None:
     labels = {
         "one_chain": "zhat, 1 chain",
         "vmapped": f"zhat, vmap {result['chains']} chains",
+        "vmapped_batched_state": "zhat, same, batched state",
         "over_devices": f"zhat, {result['chains']} chains on {result['devices']} devices",
         "plain": "plain reference, 1 chain",
     }
@@ -261,6 +288,7 @@ def print_part_toggles(result: dict[str, Any]) -> None:
 def main(argv: list[str] | None = None) -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--quick", action="store_true", help="fewer toggles and repeats")
+    parser.add_argument("--part", choices=["toggles", "samplers"], help="run this part only")
     args = parser.parse_args(argv)
     mode = "quick" if args.quick else "full"
     settings = SETTINGS[mode]
@@ -276,6 +304,8 @@ def main(argv: list[str] | None = None) -> None:
         ("toggles", part_toggles, print_part_toggles),
         ("samplers", samplers_part.part_samplers, samplers_part.print_part_samplers),
     ]
+    if args.part is not None:
+        parts = [part for part in parts if part[0] == args.part]
     results: dict[str, Any] = {}
     elapsed: dict[str, float] = {}
     for name, run_part, print_part in parts:
