@@ -12,6 +12,7 @@ import pytest
 from jax.scipy.special import ndtri
 
 from zhat.families import network
+from zhat.families.network import toggles
 from zhat.families.network.statistics import (
     difference,
     mutual,
@@ -296,12 +297,15 @@ def test_bad_inputs_name_the_fix():
         toggle_simulators(4, stats, 10, directed="yes")
 
 
+@pytest.mark.parametrize("in_turn", [True, False])
 @pytest.mark.parametrize("simulator", ["tie_no_tie", "toggle"])
-def test_vmapped_chains_equal_the_chains_run_one_by_one(key, simulator):
-    """Under ``jax.vmap`` (the custom batching rule that runs the chains in turn), batched or
-    broadcast coefficients, start graphs and noise, and nested ``vmap``, give exactly the draws
-    of the single-chain simulator called once per chain."""
+def test_vmapped_chains_equal_the_chains_run_one_by_one(key, monkeypatch, simulator, in_turn):
+    """Under ``jax.vmap`` (the custom batching rule: chains in turn, or the loop over batched
+    state below ``IN_TURN_NODES``), batched or broadcast coefficients, start graphs and noise,
+    and nested ``vmap``, give exactly the draws of the single-chain simulator called once per
+    chain."""
     n, chains = 12, 3
+    monkeypatch.setattr(toggles, "IN_TURN_NODES", n if in_turn else n + 1)
     stats = undirected_statistics(n)
     step = toggle_simulators(n, stats, 150)[simulator]
     k_graph, k_noise, k_theta = jax.random.split(key, 3)

@@ -38,13 +38,15 @@ list), with an inverse permutation to find j's place: O(1).
 State carried through the toggles. At the start of a call the sampler computes the degrees d,
 their running sums, the partner lists, the number of ties E and, when a statistic needs shared
 partners (undirected triangles, weighted_shared_partners, weighted_dyad_partners),
-S = A A (S_ij = Σ_k A_ik A_kj; the diagonal holds the degrees): O(n³) once per call. An
-accepted toggle that changes A_ij by Δ = ±1 changes d_i, d_j by Δ and rows and columns i, j of
-S: with a_i, a_j the rows of A with the dyad empty,
+S = A A (S_ij = Σ_k A_ik A_kj; the diagonal holds the degrees): O(n³) once per call; it is
+carried packed with A as 2 S + A in one integer matrix. An accepted toggle that changes A_ij by
+Δ = ±1 changes d_i, d_j by Δ and rows and columns i, j of S: with a_i, a_j the rows of A with
+the dyad empty,
 
     S_i· += Δ (a_j + e_i),  S_j· += Δ (a_i + e_j),  S_·i += Δ a_j,  S_·j += Δ a_i
 
-(from (A + ΔE_ij)² = A² + Δ(A E_ij + E_ij A) + Δ² E_ij², E_ij = e_i e_jᵀ + e_j e_iᵀ), O(n).
+(from (A + ΔE_ij)² = A² + Δ(A E_ij + E_ij A) + Δ² E_ij², E_ij = e_i e_jᵀ + e_j e_iᵀ), O(n);
+rows and columns i, j of 2 S + A are written whole (four slices), which also sets A_ij, A_ji.
 From this state the change statistics (module :mod:`zhat.families.network.statistics`), with
 t = A_ij and the counts taken with the dyad empty, are O(n) each:
 
@@ -69,12 +71,14 @@ shared-partner statistics. XLA's CPU runtime runs each operation of the loop bod
 fixed cost of tens of nanoseconds, so a toggle costs about that times the number of operations
 left after fusion, a few dozen here.
 
-Many chains. Under ``jax.vmap`` the simulators run the chains one after another, each the
-single-chain loop (a custom batching rule, ``jax.custom_batching.custom_vmap``): batched, every
-row read or write of a chain's matrices would become a gather or scatter across the chains,
-which costs more per toggle than the single chain's whole toggle. The result is the same draw
-either way. The output is a step function of θ, the graph and the noise, so the simulators pass
-no derivative through (``lax.stop_gradient`` on their inputs).
+Many chains. Under ``jax.vmap`` the simulators of graphs of at least ``IN_TURN_NODES`` nodes
+run the chains one after another, each the single-chain loop (a custom batching rule,
+``jax.custom_batching.custom_vmap``): batched, every row read or write of a chain's matrices
+becomes a gather or scatter across the chains, whose cost grows with n until it exceeds the
+single chain's whole toggle. Smaller graphs keep the batched loop, where the per-operation
+cost is shared by the chains. The result is the same draw either way. The output is a step
+function of θ, the graph and the noise, so the simulators pass no derivative through
+(``lax.stop_gradient`` on their inputs).
 """
 
 from __future__ import annotations
@@ -109,27 +113,45 @@ __all__ = [
 
 SHARED_KINDS = ("triangles", "weighted_shared_partners", "weighted_dyad_partners")
 NOISE_WIDTH = {"tie_no_tie": 3, "toggle": 2}
+# From this many nodes on, vmapped chains run in turn (measured on a 2-core CPU: batched state
+# is faster at n = 100 and below, the chains in turn from n = 150 on)
+IN_TURN_NODES = 128
 
 
 class ToggleState(NamedTuple):
     """What the toggles carry (counts int32):
 
-    - **adjacency** - (n, n) float 0/1,
+    - **matrix** - A, (n, n) float 0/1, when no statistic needs S; otherwise None and
+    - **packed** - 2 S + A, (n, n) int32, S = A A: one row read gives a row of both and one row
+      or column write sets both; the properties **adjacency** (A, float) and **shared** (S, or
+      None without it) read either layout,
     - **degrees** - d (out-degrees when directed) and **cumulative** - their running sums,
     - **partners** - (n, n): row i is a permutation of the nodes, the d_i neighbours of i first
       (out-neighbours when directed), then the other nodes, i itself last; **position** its
       inverse, position[i, partners[i, p]] = p,
-    - **shared** - S = A A, or None when no statistic needs it,
     - **ties** - E.
+
+    ``cumulative``, ``partners`` and ``position`` are None in the state of
+    ``toggle_moves(..., lists=False)``.
     """
 
-    adjacency: Array
+    matrix: Array | None
     degrees: Array
     cumulative: Array
     partners: Array
     position: Array
-    shared: Array | None
+    packed: Array | None
     ties: Array
+
+    @property
+    def adjacency(self) -> Array:
+        if self.packed is None:
+            return self.matrix
+        return (self.packed & 1).astype(jnp.result_type(float))
+
+    @property
+    def shared(self) -> Array | None:
+        return None if self.packed is None else self.packed >> 1
 
 
 class Update(NamedTuple):
@@ -184,8 +206,11 @@ def _init(a: Array, shared: bool, directed: bool, lists: bool) -> ToggleState:
         partners = jnp.argsort(key, axis=1, stable=True).astype(jnp.int32)
         position = jnp.argsort(partners, axis=1).astype(jnp.int32)
         cumulative = jnp.cumsum(degrees)
-    s = jnp.rint(a @ a).astype(jnp.int32) if shared else None
-    return ToggleState(a, degrees, cumulative, partners, position, s, ties.astype(jnp.int32))
+    packed = None
+    if shared:  # 2 S + A in one int32 matrix: one row read gives both, one write sets both
+        packed = 2 * jnp.rint(a @ a).astype(jnp.int32) + jnp.rint(a).astype(jnp.int32)
+        a = None
+    return ToggleState(a, degrees, cumulative, partners, position, packed, ties.astype(jnp.int32))
 
 
 def _choose_dyad(state: ToggleState, u: Array, tie: Array) -> tuple[Array, Array]:
@@ -246,17 +271,19 @@ class _Dyad(NamedTuple):
 
 
 def _read(state: ToggleState, i: Array, j: Array, directed: bool) -> _Dyad:
-    a = state.adjacency
-    s = state.shared
-    if s is None:  # no statistic reads the rows of A (and no S to update from them)
-        t = a[i, j]
+    p = state.packed
+    s_i = s_j = None
+    if p is None:  # no statistic reads the rows of A (and no S to update from them)
+        t = state.matrix[i, j]
         row_i = row_j = None
     else:
-        row_i, row_j = a[i], a[j]
-        t = row_i[j]
-        nodes = jnp.arange(a.shape[0])
-        row_i = jnp.where(nodes == j, 0.0, row_i)  # elementwise: no copy of the row
-        row_j = jnp.where(nodes == i, 0.0, row_j)
+        p_i, p_j = p[i], p[j]
+        dtype = jnp.result_type(float)
+        t = (p_i[j] & 1).astype(dtype)
+        nodes = jnp.arange(p.shape[0])
+        row_i = jnp.where(nodes == j, 0, p_i & 1).astype(dtype)  # elementwise: no row copy
+        row_j = jnp.where(nodes == i, 0, p_j & 1).astype(dtype)
+        s_i, s_j = p_i >> 1, p_j >> 1
     ti = t.astype(jnp.int32)
     return _Dyad(
         i,
@@ -266,8 +293,8 @@ def _read(state: ToggleState, i: Array, j: Array, directed: bool) -> _Dyad:
         row_j,
         state.degrees[i] - ti,
         state.degrees[j] - ti,
-        None if s is None else s[i],
-        None if s is None else s[j],
+        s_i,
+        s_j,
     )
 
 
@@ -334,10 +361,9 @@ def change_from_state(
     ``toggle_moves(n, stats, directed).init``); equals
     :func:`~zhat.families.network.statistics.change_statistics` up to rounding."""
     i, j = jnp.asarray(i, jnp.int32), jnp.asarray(j, jnp.int32)
-    a = state.adjacency
     dyad = _read(state, i, j, directed)
-    n = a.shape[0]
-    return _changes(stats, dyad, lambda: _cleared(a, i, j, directed), directed, n)
+    n = state.degrees.shape[0]
+    return _changes(stats, dyad, lambda: _cleared(state.adjacency, i, j, directed), directed, n)
 
 
 def _swap(state: ToggleState, v: Array, w: Array, step: Array):
@@ -377,17 +403,18 @@ def toggle_moves(
                 moves.append(_swap(state, j, i, step))
             entries = jnp.stack([jnp.concatenate(parts) for parts in zip(*moves, strict=True)])
         s_i = s_j = None
-        if shared:
+        if shared:  # the new rows i, j of the packed 2 S + A
             ai, aj = dyad.row_i.astype(jnp.int32), dyad.row_j.astype(jnp.int32)
-            s_i = dyad.shared_i + step * (aj + (nodes == i))
-            s_j = dyad.shared_j + step * (ai + (nodes == j))
+            tie = new.astype(jnp.int32)
+            s_i = 2 * (dyad.shared_i + step * (aj + (nodes == i))) + ai + tie * (nodes == j)
+            s_j = 2 * (dyad.shared_j + step * (ai + (nodes == j))) + aj + tie * (nodes == i)
         return Update(i, j, new, step, entries, s_i, s_j)
 
     def propose(theta, state, i, j, possible, u_accept, weigh):
         """Metropolis–Hastings on toggling (i, j); ``weigh(gain, t)`` is the log ratio."""
         dyad = _read(state, i, j, directed)
-        a = state.adjacency
-        delta = _changes(stats, dyad, lambda: _cleared(a, i, j, directed), directed, n)
+        cleared = lambda: _cleared(state.adjacency, i, j, directed)  # noqa: E731
+        delta = _changes(stats, dyad, cleared, directed, n)
         accept = possible & (jnp.log(u_accept) < weigh(jnp.dot(theta, delta), dyad.t))
         return outcome(state, dyad, accept)
 
@@ -395,11 +422,13 @@ def toggle_moves(
         i, j, new, step = update.i, update.j, update.value, update.step
         change = step * (nodes == i)
         after = step * (nodes >= i)
+        a = state.matrix
         if directed:
-            a = state.adjacency.at[i, j].set(new)
-        else:  # one scatter: a chain of two would keep an intermediate matrix alive
-            both = jnp.stack([i, j])
-            a = state.adjacency.at[both, both[::-1]].set(new)
+            a = a.at[i, j].set(new)
+        else:
+            if not shared:  # one scatter: a chain of two would keep an intermediate alive
+                both = jnp.stack([i, j])
+                a = a.at[both, both[::-1]].set(new)
             change = change + step * (nodes == j)
             after = after + step * (nodes >= j)
         cumulative, partners, position = state.cumulative, state.partners, state.position
@@ -408,8 +437,8 @@ def toggle_moves(
             partners = partners.at[r, q].set(w)
             position = position.at[r, w].set(q)
             cumulative = cumulative + after
-        s = state.shared
-        if shared:  # S stays symmetric: the new columns i, j are the new rows
+        s = state.packed
+        if shared:  # 2 S + A stays symmetric: the new columns i, j are the new rows
             ri, rj = update.shared_i, update.shared_j
             zero = jnp.zeros((), jnp.int32)
             s = lax.dynamic_update_slice(s, ri[None, :], (i, zero))
@@ -439,12 +468,12 @@ def toggle_moves(
         count = jnp.where(remove, ties, m_dyads - ties)
         ties_f = ties.astype(theta.dtype)
 
+        # the counts selected before the logs: two logs, not four, in the loop body
+        chosen = jnp.where(remove, ties_f, m_dyads - ties_f)
+        other = jnp.where(remove, m_dyads - ties_f + 1.0, ties_f + 1.0)
+
         def weigh(gain, t):  # −inf where the half has nothing to choose (never accepted)
-            return jnp.where(
-                remove,
-                -gain + jnp.log(ties_f) - jnp.log(m_dyads - ties_f + 1.0),
-                gain + jnp.log(m_dyads - ties_f) - jnp.log(ties_f + 1.0),
-            )
+            return jnp.where(remove, -gain, gain) + jnp.log(chosen) - jnp.log(other)
 
         return propose(theta, state, i, j, count > 0, u[2], weigh)
 
@@ -482,18 +511,20 @@ def run(
     return moves.apply(state, pending)
 
 
-def _chains_in_turn(simulate: Callable[[Array, Array, Array], Array]):
+def _chains_in_turn(simulate: Callable[[Array, Array, Array], Array], in_turn: bool):
     """``simulate(theta, a, noise)`` whose ``jax.vmap`` runs the chains one after another
-    (``lax.map``, each chain the single-chain loop) instead of one loop over batched state.
+    (``lax.map``, each chain the single-chain loop) when ``in_turn``, else as ``jax.vmap``
+    would (one loop over batched state).
 
     Batched, each row read and each write of a chain's matrices becomes a gather or scatter
-    across the chains, dearer per toggle than the whole single-chain toggle; run in turn, the
-    chains keep the single-chain rate. Unbatched arguments are broadcast; nested ``vmap``
-    nests the maps."""
+    across the chains, whose cost grows with n; run in turn, the chains keep the single-chain
+    rate. Unbatched arguments are broadcast; nested ``vmap`` nests the maps."""
     f = jax.custom_batching.custom_vmap(simulate)
 
     @f.def_vmap
     def rule(axis_size, in_batched, *args):
+        if not in_turn:
+            return jax.vmap(simulate, in_axes=[0 if b else None for b in in_batched])(*args), True
         args = tuple(
             x if b else jnp.broadcast_to(x, (axis_size, *jnp.shape(x)))
             for x, b in zip(args, in_batched, strict=True)
@@ -521,7 +552,8 @@ def toggle_simulators(
         move = getattr(moves, name)
         width = NOISE_WIDTH[name]
         simulate = _chains_in_turn(
-            lambda theta, a, noise: run(moves, move, theta, moves.init(a), noise).adjacency
+            lambda theta, a, noise: run(moves, move, theta, moves.init(a), noise).adjacency,
+            n >= IN_TURN_NODES,
         )
 
         def step(params, x, noise):
