@@ -113,9 +113,9 @@ __all__ = [
 
 SHARED_KINDS = ("triangles", "weighted_shared_partners", "weighted_dyad_partners")
 NOISE_WIDTH = {"tie_no_tie": 3, "toggle": 2}
-# From this many nodes on, vmapped chains run in turn (measured on a 2-core CPU: batched state
-# is faster at n = 100 and below, the chains in turn from n = 150 on)
-IN_TURN_NODES = 128
+# From this many nodes on, vmapped chains run in turn (measured on a 2-core CPU with 8 and 32
+# chains: batched state is faster at n = 128 and below, the chains in turn from n = 150 on)
+IN_TURN_NODES = 150
 
 
 class ToggleState(NamedTuple):
