@@ -11,7 +11,8 @@ Part "toggles": Metropolis–Hastings toggles per second of the two simulators `
 1. zhat, one chain: O(n) per toggle (degrees, S = A A and, for ``tie_no_tie``, the partner
    lists carried and updated),
 2. zhat, ``jax.vmap`` over 8 chains (the rate counts the toggles of all chains); the simulators'
-   batching rule runs the chains in turn, each the single-chain loop,
+   batching rule runs the chains in turn (200 nodes, above ``IN_TURN_NODES``), each the
+   single-chain loop,
 3. zhat, the same toggle loop vmapped over 8 chains with the state batched (what ``jax.vmap``
    made of the loop before the batching rule: every row read and write a gather or scatter),
 4. zhat, 8 chains split over the CPU devices (``jax.pmap``), each device running its chains in

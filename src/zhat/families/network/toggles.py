@@ -157,8 +157,8 @@ class ToggleState(NamedTuple):
 class Update(NamedTuple):
     """One toggle's outcome, to be written into the state: the dyad (i, j), its new value, the
     change of A_ij (−1, 0 or 1), the entries to write into ``partners`` (``position`` gets the
-    inverse) as one (3, k) array of rows, slots and nodes, and the new rows i and j of S
-    (None without S)."""
+    inverse) as one (3, k) array of rows, slots and nodes (None without partner lists), and
+    the new rows i and j of the packed 2 S + A (None without S)."""
 
     i: Array
     j: Array
