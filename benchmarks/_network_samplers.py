@@ -66,7 +66,8 @@ def club(calls: int) -> np.ndarray:
 
 
 def club_model(y):
-    theta = numpyro.sample("theta", dist.Normal(0.0, jnp.asarray(PRIOR_SD)).to_event(1))
+    prior = dist.Normal(jnp.zeros(PRIOR_SD.size), jnp.asarray(PRIOR_SD))
+    theta = numpyro.sample("theta", prior.to_event(1))
     numpyro.sample("g", network.model(MEMBERS, list(STATS), theta), obs=y)
 
 
@@ -112,7 +113,8 @@ def part_samplers(settings: dict[str, Any]) -> dict[str, Any]:
     mle = fit.maximum_likelihood(random.key(1), d, y, steps=300, draws=300)
     fit_seconds = time.time() - start
     theta0 = jnp.asarray(mle.estimate["coefficients"])
-    init = {"theta": theta0}
+    chains = s["chains"]
+    init = {"theta": jnp.broadcast_to(theta0, (chains, theta0.size))}  # every chain at the MLE
     estimator = single_auxiliary(
         num_draws=s["num_draws"], sampler="tie_no_tie", sweeps=s["sweeps"],
         reference={"coefficients": theta0},
@@ -123,7 +125,7 @@ def part_samplers(settings: dict[str, Any]) -> dict[str, Any]:
         chain_method=chains_in_turn, progress_bar=False,
     )  # fmt: skip
     (info,) = exposed.describe(y)
-    noise0 = random.normal(random.key(3), info.noise_shape)
+    noise0 = random.normal(random.key(3), (chains, *info.noise_shape))
     samplers = {
         "exchange_approximate": (
             f"approximate exchange (double MH, {s['sweeps']} sweeps)",
