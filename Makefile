@@ -24,6 +24,7 @@ bench: $(STAMP)
 	$(BIN)/python benchmarks/latent_gaussian.py
 	$(BIN)/python benchmarks/lattice.py
 	$(BIN)/python benchmarks/fit.py
+	$(BIN)/python benchmarks/network.py
 
 clean:
 	rm -rf $(VENV) build src/*.egg-info .pytest_cache

@@ -130,12 +130,12 @@ def assert_matches(draws, mean, sd, what, power=0.15):
 
 
 CIRCLE_SAMPLERS = {
-    # 10 simulator calls of 21 toggles each per auxiliary graph
+    # 10 (exchange) or 8 (estimator) simulator calls of 21 toggles each per auxiliary graph
     "double Metropolis-Hastings": lambda m: DoubleMetropolisHastings(
         m, sweeps=10, simulator="tie_no_tie"
     ),
     "pseudo-marginal Gibbs, single auxiliary": lambda m: pseudo_marginal_gibbs(
-        zhat.expose(m, single_auxiliary(num_draws=4, sampler="tie_no_tie", sweeps=10))
+        zhat.expose(m, single_auxiliary(num_draws=2, sampler="tie_no_tie", sweeps=8))
     ),
 }
 
