@@ -2,10 +2,10 @@
 estimator's reference point and the approximate exchange kernel with a clear error.
 
 A random graph model with a large positive triangle coefficient puts nearly all its mass on
-the complete graph (Handcock 2003, CSSS working paper 39; Schweinberger 2011, JASA 106(496)):
-started from a sparse graph, the tie/no-tie simulator fills it within a few sweeps. An
-edges-only model at θ = logit(density) simulates graphs of the observed density (ties are
-independent Bernoulli(σ(θ)); common practice), so nothing stops it.
+the complete graph (Handcock 2003, CSSS working paper 39; Schweinberger 2011, JASA 106(496);
+both from memory): started from a sparse graph, the tie/no-tie simulator fills it within a
+few sweeps. An edges-only model at θ = logit(density) simulates graphs of the observed
+density (ties are independent Bernoulli(σ(θ)); common practice), so nothing stops it.
 """
 
 import jax
@@ -99,7 +99,7 @@ def test_estimator_reference_point_is_checked():
     """An estimator drawing from a simulator checks its reference point once, when the model
     is first traced. Here the maximum pseudo-likelihood point of edges + triangles on a sparse
     random graph is itself degenerate (it is known to land there often: van Duijn, Gile &
-    Handcock 2009, Social Networks 31(1)); an edges-only model's reference is fine."""
+    Handcock 2009, Social Networks 31(1), from memory); an edges-only model's reference is fine."""
     y = jnp.asarray(sparse_graph())
 
     def model(y, stats):

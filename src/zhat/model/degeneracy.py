@@ -4,8 +4,9 @@ Some exponential families put almost all their mass on a few extreme data sets f
 parameter values: a random graph model with triangle or k-star terms simulates the empty or
 the complete graph except in a thin region of coefficients (Handcock 2003, "Assessing
 degeneracy in statistical models of social networks", CSSS working paper 39; Schweinberger
-2011, JASA 106(496)). Every estimator or kernel that draws auxiliary data at such a point gets
-draws that say nothing about the observed data: the run is wasted and its results mislead.
+2011, JASA 106(496); both cited from memory). Every estimator or kernel that draws auxiliary
+data at such a point gets draws that say nothing about the observed data: the run is wasted
+and its results mislead.
 
 A family declares a :class:`~zhat.model.unnormalized.Degeneracy`: a fill in [0, 1] per data
 set. A simulated data set has **collapsed** when its fill is at most ``EDGE`` while the
