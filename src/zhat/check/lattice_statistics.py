@@ -46,8 +46,9 @@ class StatisticSet(NamedTuple):
 
     - **names** - one name per statistic.
     - **compute** - ``(x) -> (len(names),)`` array; a jax function (runs under ``vmap``).
-    - **curves** - ``(title, first, last)`` index ranges of ``names`` that form a curve over
-      distance 1..(last − first) (plotted as a band, not as histograms).
+    - **curves** - ``(title, first, last)`` index ranges of ``names`` that form a curve
+      (plotted as a band, not as histograms); each point's x value is read from the last word
+      of its name (a distance, a degree, "≥ 9", "inf"; see ``zhat.check.plots.curve_bins``).
     """
 
     names: tuple[str, ...]

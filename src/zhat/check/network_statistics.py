@@ -1,7 +1,7 @@
 """Test statistics of graphs, for posterior-predictive checks of random graph models.
 
 Three distributions summarise how a graph is put together beyond the counts a model fits
-(Hunter, Goodreau & Handcock 2008, JASA 103(481), on checking fit with them):
+(Hunter, Goodreau & Handcock 2008, JASA 103(481), cited from memory, on checking fit with them):
 
 - **Degree distribution**: the number of nodes with degree 0, 1, …, D − 1 and with degree ≥ D.
   For a directed graph (row i, column j holding the tie i → j) the out-degree distribution
