@@ -490,7 +490,7 @@ def test_noise_order_on_a_chequerboard_grid():
 
 @pytest.mark.parametrize("graph", FAST_SWEEP_GRAPHS)
 @pytest.mark.parametrize("field_kind", ["scalar", "per site"])
-@pytest.mark.parametrize("coupling", [0.4, -0.3, 0.0])
+@pytest.mark.parametrize("coupling", [0.4, -0.3])
 def test_fast_sweep_is_the_colour_class_sweep(key, graph, field_kind, coupling):
     """The levels-and-layout sweep computes the same spins as the plain colour-class sweep
     with U = Φ(z) from the same noise (each noise entry given to its site by noise_order):
@@ -502,7 +502,7 @@ def test_fast_sweep_is_the_colour_class_sweep(key, graph, field_kind, coupling):
     n = nb.num_sites
     k_start, k_noise, k_field = jax.random.split(key, 3)
     s = jnp.where(jax.random.bernoulli(k_start, 0.5, (n,)), 1.0, -1.0)
-    z = jax.random.normal(k_noise, (7, n))
+    z = jax.random.normal(k_noise, (4, n))
     h = jnp.asarray(0.1) if field_kind == "scalar" else 0.3 * jax.random.normal(k_field, (n,))
     j = jnp.asarray(coupling)
     uniforms = [by_site(nb, ndtr(row)) for row in z]
