@@ -21,6 +21,11 @@ Part "toggles": Metropolis–Hastings toggles per second of the two simulators `
    ``plain_simulators``): each toggle scans all dyads to choose a tie, O(n²), and computes
    the shared-partner change statistic from the adjacency matrix, O(n²).
 
+The process calls :func:`zhat.compile_small_loops` first (``--loops whole``, the default, as the
+``zhat`` command does), so that XLA compiles each toggle loop whole; the part is also run in a
+child process with XLA's default loop runtime (``--loops default``), whose table is printed
+first, and the ratios of the two are printed and stored (``toggles_whole_over_default``).
+
 Each is jit-compiled and warmed up first; a call makes ``toggles`` toggles per chain from the
 club graph (``plain_toggles`` for the plain reference, which is slow; the rate is per toggle, and
 zhat's rate includes computing S = A A at the start of each call) and is waited for with
@@ -32,7 +37,7 @@ Part "samplers" (:mod:`_network_samplers`): effective samples per second of
 standard pseudo-marginal Metropolis–Hastings on an invented 50-member club, same data, same
 estimator, timed without compilation.
 
-    .venv/bin/python benchmarks/network.py [--quick] [--part toggles|samplers]
+    .venv/bin/python benchmarks/network.py [--quick] [--part toggles|samplers] [--loops default]
 
 ``--quick`` makes fewer toggles per call and fewer repeats; ``--part`` runs one part only.
 Output: a table and, as the last line, one JSON object with every figure.
@@ -44,6 +49,8 @@ import argparse
 import json
 import os
 import statistics as stats_lib
+import subprocess
+import sys
 import time
 from typing import Any
 
@@ -59,6 +66,7 @@ from jax import lax  # noqa: E402
 from jax.scipy.special import ndtr  # noqa: E402
 
 import _network_samplers as samplers_part  # noqa: E402
+import zhat  # noqa: E402
 from _common import load_average  # noqa: E402
 from zhat.families import network  # noqa: E402
 from zhat.families.network.toggles import run, toggle_moves, toggle_simulators  # noqa: E402
@@ -286,19 +294,59 @@ def print_part_toggles(result: dict[str, Any]) -> None:
     print()
 
 
+def toggles_with_default_loops(quick: bool) -> dict[str, Any]:
+    """Part "toggles" run in a child process with XLA's default loop runtime (the option of
+    :func:`zhat.compile_small_loops` is read when a process starts JAX, so it takes a process
+    of its own); its table is printed here, its JSON returned."""
+    command = [sys.executable, __file__, "--part", "toggles", "--loops", "default"]
+    env = dict(os.environ)
+    env.pop("XLA_FLAGS", None)  # the child sets its own device count
+    done = subprocess.run(
+        [*command, *(["--quick"] if quick else [])], capture_output=True, text=True, env=env
+    )
+    if done.returncode != 0:
+        raise RuntimeError(f"the toggles part with default loops failed:\n{done.stderr}")
+    lines = done.stdout.strip().splitlines()
+    print("--- with XLA's default loop runtime (child process) ---")
+    print("\n".join(lines[1:-1]))
+    print("--- with zhat.compile_small_loops() (this process) ---\n")
+    return json.loads(lines[-1])["toggles"]
+
+
+def print_whole_over_default(ratios: dict[str, dict[str, float]]) -> None:
+    print("toggles/s with loops compiled whole / with XLA's default loop runtime (best rounds):")
+    for name, row in ratios.items():
+        cells = ", ".join(f"{run} {value:.2f}x" for run, value in row.items())
+        print(f"  {name}: {cells}")
+
+
 def main(argv: list[str] | None = None) -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--quick", action="store_true", help="fewer toggles and repeats")
     parser.add_argument("--part", choices=["toggles", "samplers"], help="run this part only")
+    parser.add_argument(
+        "--loops",
+        choices=["whole", "default"],
+        default="whole",
+        help="whole: zhat.compile_small_loops() (the default, as the zhat command sets it); "
+        "default: XLA's default loop runtime. With 'whole' the toggles part is also run with "
+        "'default' in a child process, and both are reported",
+    )
     args = parser.parse_args(argv)
+    if args.loops == "whole":
+        zhat.compile_small_loops()  # before the first computation of this process
     mode = "quick" if args.quick else "full"
     settings = SETTINGS[mode]
     load_before = load_average()
     print(
         f"network benchmark ({mode}); jax {jax.__version__}, {jax.device_count()} CPU "
-        f"device(s), float64; load average {load_before} ({os.cpu_count()} cores)\n"
+        f"device(s), float64; loops {args.loops}; load average {load_before} "
+        f"({os.cpu_count()} cores)\n"
     )
     started = time.time()
+    default_loops = None
+    if args.loops == "whole" and args.part in (None, "toggles"):
+        default_loops = toggles_with_default_loops(args.quick)
     settings = {**settings, "samplers": samplers_part.SETTINGS[mode]}
     # The parts of this benchmark, run in order: (name, run, print).
     parts = [
@@ -316,9 +364,21 @@ def main(argv: list[str] | None = None) -> None:
         print_part(results[name])
     load_after = load_average()
     print(f"load average after: {load_after}; wall time {time.time() - started:.0f} s")
+    if default_loops is not None:
+        results["toggles_default_loops"] = default_loops
+        results["toggles_whole_over_default"] = {
+            name: {
+                run: row[run]["best"] / default_loops["simulators"][name][run]["best"]
+                for run in ("one_chain", "vmapped", "over_devices")
+                if run in row
+            }
+            for name, row in results["toggles"]["simulators"].items()
+        }
+        print_whole_over_default(results["toggles_whole_over_default"])
     summary = {
         "benchmark": "network",
         "mode": mode,
+        "loops": args.loops,
         "settings": settings,
         "load_average_before": list(load_before),
         "load_average_after": list(load_after),

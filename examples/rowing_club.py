@@ -116,4 +116,5 @@ def main() -> None:
 
 
 if __name__ == "__main__":
+    zhat.compile_small_loops()  # before the first computation: the toggle loops compiled whole
     main()

@@ -18,6 +18,7 @@ from zhat.model import (
     noise_sites,
     unnormalized,
 )
+from zhat.xla_options import compile_small_loops
 
 __version__ = "0.1.0"
 
@@ -28,6 +29,7 @@ __all__ = [
     "IntractableFactor",
     "NotExposedError",
     "check",
+    "compile_small_loops",
     "estimators",
     "expose",
     "integrate_out",

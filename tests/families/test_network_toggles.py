@@ -258,6 +258,23 @@ def test_carried_state_equals_recomputation_after_a_long_run(key, directed):
     assert_fast_equals_generic(stats, state, i, j, directed)
 
 
+@pytest.mark.parametrize("directed", [False, True])
+def test_initial_partner_lists_are_the_stable_sort(key, directed):
+    """The lists built from running sums equal NumPy's stable sort of each row by kind
+    (neighbours, other nodes, the node itself), and ``position`` is their inverse; S = A A."""
+    n = 40
+    a = np.asarray(random_graph(key, n, 0.3, directed))
+    state = toggle_moves(
+        n, undirected_statistics(n) if not directed else (network.edges(),), directed
+    ).init(jnp.asarray(a))
+    kind = (a < 0.5).astype(int) + np.eye(n, dtype=int)
+    expected = np.argsort(kind, axis=1, kind="stable")
+    np.testing.assert_array_equal(state.partners, expected)
+    np.testing.assert_array_equal(state.position, np.argsort(expected, axis=1))
+    if not directed:
+        np.testing.assert_array_equal(state.shared, (a @ a).astype(int))
+
+
 def test_directed_toggles_flip_one_direction_only(key):
     """A directed toggle of i → j leaves j → i alone: from the empty graph with a strong
     mutuality term the chains must hold some one-way ties, and the diagonal stays empty."""

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import argparse
 import math
+import os
 import sys
 from pathlib import Path
 from typing import Any
@@ -377,5 +378,14 @@ COMMANDS = {"demo": run_demo, "fit": run_fit, "resume": run_resume, "report": ru
 
 
 def main_exit() -> None:
-    """Console-script entry point: run :func:`main` and exit with its code."""
+    """Console-script entry point: run :func:`main` and exit with its code.
+
+    Before the first computation it lets XLA compile small loops whole (the toggle and sweep
+    loops of the samplers; :mod:`zhat.xla_options`), unless ``XLA_FLAGS`` already sets that
+    threshold.
+    """
+    from zhat import xla_options
+
+    if xla_options.OPTION not in os.environ.get("XLA_FLAGS", ""):
+        xla_options.compile_small_loops()
     sys.exit(main())

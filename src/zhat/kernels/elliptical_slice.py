@@ -17,7 +17,6 @@ from __future__ import annotations
 from collections.abc import Callable, Sequence
 from typing import Any, NamedTuple
 
-import blackjax.mcmc.elliptical_slice as ess
 import jax
 import jax.numpy as jnp
 from jax import random
@@ -45,6 +44,10 @@ def build_kernel(sites: Sequence[str]) -> tuple[Callable, Callable]:
     & MacKay 2010); positions keep the site's dtype (the likelihood is evaluated at the value
     as stored).
     """
+    # imported here: importing BlackJAX starts JAX's backend, which zhat.compile_small_loops
+    # must come before
+    import blackjax.mcmc.elliptical_slice as ess
+
     sites = tuple(sites)
 
     def init(z: dict[str, Array], loglik_fn: LogDensityFn) -> AlgorithmState:

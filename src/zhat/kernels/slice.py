@@ -13,7 +13,6 @@ from __future__ import annotations
 from collections.abc import Callable
 from typing import Any, NamedTuple
 
-import blackjax.mcmc.slice as bslice
 import jax
 import jax.numpy as jnp
 
@@ -23,7 +22,7 @@ Array = jax.Array
 
 __all__ = ["Slice", "SliceInfo", "build_kernel"]
 
-_INTERVALS = {"doubling": bslice.doubling, "stepping_out": bslice.stepping_out}
+_INTERVALS = ("doubling", "stepping_out")
 
 
 class SliceInfo(NamedTuple):
@@ -41,6 +40,10 @@ def build_kernel(
     max_shrinkage: int = 100,
 ) -> tuple[Callable, Callable]:
     """Pure ``(init, step)`` of the slice sampler over a dict of unconstrained values."""
+    # imported here: importing BlackJAX starts JAX's backend, which zhat.compile_small_loops
+    # must come before
+    import blackjax.mcmc.slice as bslice
+
     if method not in ("coordinate", "direction"):
         raise ValueError(f"Slice method must be 'coordinate' or 'direction', got {method!r}.")
     if interval not in _INTERVALS:
@@ -49,16 +52,16 @@ def build_kernel(
         raise ValueError(f"Slice width must be positive, got {width!r}.")
     if method == "coordinate":
         kernel = bslice.build_coordinate_kernel(
-            interval=_INTERVALS[interval],
+            interval=getattr(bslice, interval),
             initial_widths=width,
             max_expansions=max_expansions,
             max_shrinkage=max_shrinkage,
         )
         run = kernel
     else:
-        kernel = bslice.build_kernel(_INTERVALS[interval], max_expansions, max_shrinkage)
+        kernel = bslice.build_kernel(getattr(bslice, interval), max_expansions, max_shrinkage)
 
-        def run(key: Array, state: bslice.SliceState, fn: LogDensityFn):
+        def run(key: Array, state: Any, fn: LogDensityFn):
             return kernel(key, state, fn, bslice.direction_proposal(), width)
 
     def init(z: dict[str, Array], logdensity_fn: LogDensityFn) -> AlgorithmState:

@@ -69,16 +69,21 @@ choice of a tie or an empty dyad, so ``toggle``, which picks its dyad directly f
 uniform, runs without them (``toggle_moves(..., lists=False)``); S is carried only for the
 shared-partner statistics. XLA's CPU runtime runs each operation of the loop body in turn at a
 fixed cost of tens of nanoseconds, so a toggle costs about that times the number of operations
-left after fusion, a few dozen here.
+left after fusion, a few dozen here, unless :func:`zhat.compile_small_loops` lets XLA compile
+the loop whole into one function (two to three times as many toggles per second on 200 nodes).
+XLA never does that for a loop with a scatter, so the loop writes single entries with
+dynamic_update_slice. The partner lists are built at the start of a call from running sums
+rather than by sorting (a sort of the n rows costs as much as thousands of toggles).
 
 Many chains. Under ``jax.vmap`` the simulators of graphs of at least ``IN_TURN_NODES`` nodes
 run the chains one after another, each the single-chain loop (a custom batching rule,
 ``jax.custom_batching.custom_vmap``): batched, every row read or write of a chain's matrices
 becomes a gather or scatter across the chains, whose cost grows with n until it exceeds the
 single chain's whole toggle. Smaller graphs keep the batched loop, where the per-operation
-cost is shared by the chains. The result is the same draw either way. The output is a step
-function of θ, the graph and the noise, so the simulators pass no derivative through
-(``lax.stop_gradient`` on their inputs).
+cost is shared by the chains, unless the loops are compiled whole (then there is no
+per-operation cost to share, and the chains run in turn at every size). The result is the
+same draw either way. The output is a step function of θ, the graph and the noise, so the
+simulators pass no derivative through (``lax.stop_gradient`` on their inputs).
 """
 
 from __future__ import annotations
@@ -94,6 +99,7 @@ from jax import lax
 from jax.scipy.special import ndtr
 from jax.typing import ArrayLike
 
+from zhat import xla_options
 from zhat.families.network.statistics import Statistic
 from zhat.model.unnormalized import Transition
 
@@ -116,6 +122,16 @@ NOISE_WIDTH = {"tie_no_tie": 3, "toggle": 2}
 # From this many nodes on, vmapped chains run in turn (measured on a 2-core CPU with 8 and 32
 # chains: batched state is faster at n = 128 and below, the chains in turn from n = 150 on)
 IN_TURN_NODES = 150
+# With loops compiled whole (zhat.compile_small_loops), the chains run in turn at every size
+# (7 times as fast as batched state for 2 chains on 50 nodes) when the threshold covers a
+# toggle's bytes: a few hundred per node, counted generously
+LOOP_BYTES_PER_NODE = 256
+
+
+def _chains_run_in_turn(n: int) -> bool:
+    """Whether vmapped chains of an n-node graph run one after another (module docstring)."""
+    threshold = xla_options.small_loops_threshold()
+    return n >= IN_TURN_NODES or (threshold is not None and threshold >= LOOP_BYTES_PER_NODE * n)
 
 
 class ToggleState(NamedTuple):
@@ -201,14 +217,23 @@ def _init(a: Array, shared: bool, directed: bool, lists: bool) -> ToggleState:
     ties = total if directed else total // 2
     cumulative = partners = position = None
     if lists:
-        # sort key: neighbours 0, other nodes 1, the node itself 2 (stable: by node number)
-        key = (a < 0.5).astype(jnp.int32) + jnp.eye(n, dtype=jnp.int32)
-        partners = jnp.argsort(key, axis=1, stable=True).astype(jnp.int32)
-        position = jnp.argsort(partners, axis=1).astype(jnp.int32)
+        # neighbours first, then the other nodes, each in node order, the node itself last:
+        # a node's place is the count of its kind before it (running sums, not a sort, which
+        # would cost more than thousands of toggles), and the lists are its inverse
+        tie = a > 0.5
+        other = ~tie & ~jnp.eye(n, dtype=bool)
+        t, o = tie.astype(jnp.int32), other.astype(jnp.int32)
+        before_tie = jnp.cumsum(t, axis=1) - t
+        before_other = degrees[:, None] + jnp.cumsum(o, axis=1) - o
+        position = jnp.where(tie, before_tie, jnp.where(other, before_other, n - 1))
+        nodes = jnp.broadcast_to(jnp.arange(n, dtype=jnp.int32), (n, n))
+        partners = jnp.zeros((n, n), jnp.int32).at[nodes.T, position].set(nodes)
         cumulative = jnp.cumsum(degrees)
     packed = None
     if shared:  # 2 S + A in one int32 matrix: one row read gives both, one write sets both
-        packed = 2 * jnp.rint(a @ a).astype(jnp.int32) + jnp.rint(a).astype(jnp.int32)
+        # S in single precision: its counts (at most n) are exact, and the product is faster
+        single = a.astype(jnp.float32)
+        packed = 2 * jnp.rint(single @ single).astype(jnp.int32) + jnp.rint(a).astype(jnp.int32)
         a = None
     return ToggleState(a, degrees, cumulative, partners, position, packed, ties.astype(jnp.int32))
 
@@ -381,6 +406,11 @@ def _swap(state: ToggleState, v: Array, w: Array, step: Array):
     return jnp.stack([v, v]), jnp.stack([p, q]), jnp.stack([x, w])
 
 
+def _put(x: Array, i: Array, j: Array, value: Array) -> Array:
+    """``x`` with entry (i, j) set to ``value``, as a dynamic_update_slice."""
+    return lax.dynamic_update_slice(x, jnp.reshape(value, (1, 1)).astype(x.dtype), (i, j))
+
+
 def toggle_moves(
     n: int, stats: tuple[Statistic, ...], directed: bool = False, lists: bool = True
 ) -> ToggleMoves:
@@ -424,18 +454,20 @@ def toggle_moves(
         after = step * (nodes >= i)
         a = state.matrix
         if directed:
-            a = a.at[i, j].set(new)
+            a = _put(a, i, j, new)
         else:
-            if not shared:  # one scatter: a chain of two would keep an intermediate alive
-                both = jnp.stack([i, j])
-                a = a.at[both, both[::-1]].set(new)
+            if not shared:
+                a = _put(_put(a, i, j, new), j, i, new)
             change = change + step * (nodes == j)
             after = after + step * (nodes >= j)
         cumulative, partners, position = state.cumulative, state.partners, state.position
         if lists:
+            # one entry at a time (dynamic_update_slice, not a scatter: a loop with a scatter
+            # cannot be compiled as one function, see compile_small_loops)
             r, q, w = update.lists
-            partners = partners.at[r, q].set(w)
-            position = position.at[r, w].set(q)
+            for k in range(r.shape[0]):
+                partners = _put(partners, r[k], q[k], w[k])
+                position = _put(position, r[k], w[k], q[k])
             cumulative = cumulative + after
         s = state.packed
         if shared:  # 2 S + A stays symmetric: the new columns i, j are the new rows
@@ -553,7 +585,7 @@ def toggle_simulators(
         width = NOISE_WIDTH[name]
         simulate = _chains_in_turn(
             lambda theta, a, noise: run(moves, move, theta, moves.init(a), noise).adjacency,
-            n >= IN_TURN_NODES,
+            _chains_run_in_turn(n),
         )
 
         def step(params, x, noise):
