@@ -42,7 +42,7 @@ def build_kernel(sites: Sequence[str]) -> tuple[Callable, Callable]:
     the N(0, I) prior of the sites removed. The shrinking bracket always ends at the current
     point, so the loop terminates when the likelihood is continuous in the noise (Murray, Adams
     & MacKay 2010); positions keep the site's dtype (the likelihood is evaluated at the value
-    as stored).
+    as stored). A site whose current likelihood is zero (or NaN) is left where it is.
     """
     # imported here: importing BlackJAX starts JAX's backend, which zhat.compile_small_loops
     # must come before
@@ -66,12 +66,26 @@ def build_kernel(sites: Sequence[str]) -> tuple[Callable, Callable]:
             def site_loglik(v: Array, site: str = site, dtype=value.dtype) -> Array:
                 return loglik_fn({**z, site: v.astype(dtype)}).astype(state.logdensity.dtype)
 
-            new, info = kernel(
-                random.fold_in(rng_key, i), ess.EllipSliceState(value, loglik), site_loglik
+            def move(key, value=value, loglik=loglik, kernel=kernel, site_loglik=site_loglik):
+                new, info = kernel(key, ess.EllipSliceState(value, loglik), site_loglik)
+                return (
+                    new.position.astype(value.dtype),
+                    jnp.asarray(new.logdensity, loglik.dtype),
+                    jnp.asarray(info.subiter, jnp.int32),
+                )
+
+            def stay(key, value=value, loglik=loglik):
+                return value, loglik, jnp.zeros((), jnp.int32)
+
+            # At a point of zero likelihood (an estimate that came out 0, or NaN) the slice
+            # level is -inf or NaN and the bracket would shrink forever without accepting:
+            # such a point keeps its value (the move is the identity there).
+            value, new_loglik, subiter = jax.lax.cond(
+                jnp.isfinite(loglik), move, stay, random.fold_in(rng_key, i)
             )
-            z[site] = new.position.astype(value.dtype)
-            loglik = new.logdensity.astype(state.logdensity.dtype)
-            counts.append(jnp.asarray(info.subiter, jnp.int32))
+            z[site] = value
+            loglik = jnp.asarray(new_loglik).astype(state.logdensity.dtype)
+            counts.append(jnp.asarray(subiter, jnp.int32))
         return AlgorithmState(z, loglik, None), EllipticalSliceInfo(jnp.stack(counts))
 
     return init, step

@@ -70,7 +70,7 @@ uniform, runs without them (``toggle_moves(..., lists=False)``); S is carried on
 shared-partner statistics. XLA's CPU runtime runs each operation of the loop body in turn at a
 fixed cost of tens of nanoseconds, so a toggle costs about that times the number of operations
 left after fusion, a few dozen here, unless :func:`zhat.compile_small_loops` lets XLA compile
-the loop whole into one function (two to three times as many toggles per second on 200 nodes).
+the loop whole into one function (about three times as many toggles per second on 200 nodes).
 XLA never does that for a loop with a scatter, so the loop writes single entries with
 dynamic_update_slice. The partner lists are built at the start of a call from running sums
 rather than by sorting (a sort of the n rows costs as much as thousands of toggles).
@@ -371,7 +371,8 @@ def _changes(
 
 
 def _cleared(a: Array, i: Array, j: Array, directed: bool) -> Array:
-    return a.at[i, j].set(0.0) if directed else a.at[i, j].set(0.0).at[j, i].set(0.0)
+    zero = jnp.zeros((), a.dtype)
+    return _put(a, i, j, zero) if directed else _put(_put(a, i, j, zero), j, i, zero)
 
 
 def change_from_state(
