@@ -83,7 +83,8 @@ are as many as the 15-minute budget allows. With the loops compiled whole
 of (b) takes 1–3 s, the order of the fixed cost of starting a run: the ESS-per-second ratios of
 (b) and (c) are then less precise than with ``--loops default``. (Runs four times as long were
 tried: one chain of ``pseudo_marginal_gibbs`` with elliptical slice and the single estimator
-then did not finish, with either loop runtime; the cause is not yet found.)
+then did not finish, with either loop runtime, until the elliptical slice move was given its
+evaluation budget; see :mod:`zhat.kernels.elliptical_slice`.)
 
 Timing. As in ``latent_gaussian.py`` (helpers in ``_common.py``): each sampling phase is timed
 whole with ``jax.block_until_ready`` and the compile time JAX reports through ``jax.monitoring``

@@ -7,9 +7,11 @@ needs no tuning and always moves when L is continuous in u (Murray, Adams & MacK
 AISTATS, "Elliptical slice sampling"). Here L(u) = f̂(θ, u) × (terms of the joint not involving
 u), so the kernel is the natural u-move of a pseudo-marginal sampler on (θ, u).
 
-This wraps BlackJAX's ``elliptical_slice``; each noise site is updated in turn with the others
-fixed. Assumption: every site of the block has the N(0, I) prior that :func:`zhat.expose` gives
-noise sites; the kernel refuses other sites.
+Each noise site is updated in turn with the others fixed; each move evaluates the likelihood
+at most a fixed number of times (200 by default), after which the site keeps its value, so that
+an estimator that is piecewise constant in u cannot hold the loop forever. Assumption: every
+site of the block has the N(0, I) prior that :func:`zhat.expose` gives noise sites; the kernel
+refuses other sites.
 """
 
 from __future__ import annotations
@@ -19,7 +21,7 @@ from typing import Any, NamedTuple
 
 import jax
 import jax.numpy as jnp
-from jax import random
+from jax import lax, random
 
 from zhat.kernels._noise import NoiseKernel
 from zhat.kernels._shell import AlgorithmState, LogDensityFn
@@ -35,19 +37,23 @@ class EllipticalSliceInfo(NamedTuple):
     subiter: Array
 
 
-def build_kernel(sites: Sequence[str]) -> tuple[Callable, Callable]:
+MAX_EVALUATIONS = 200  # per site and step; then the site keeps its value (see _slice_move)
+
+
+def build_kernel(
+    sites: Sequence[str], max_evaluations: int = MAX_EVALUATIONS
+) -> tuple[Callable, Callable]:
     """Pure ``(init, step)`` for one elliptical slice move per site of ``sites``, in order.
 
     ``logdensity_fn`` passed to them is the log *likelihood* of the block: the log joint with
-    the N(0, I) prior of the sites removed. The shrinking bracket always ends at the current
-    point, so the loop terminates when the likelihood is continuous in the noise (Murray, Adams
-    & MacKay 2010); positions keep the site's dtype (the likelihood is evaluated at the value
-    as stored). A site whose current likelihood is zero (or NaN) is left where it is.
+    the N(0, I) prior of the sites removed. Positions keep the site's dtype (the likelihood is
+    evaluated at the value as stored). Each move evaluates the likelihood at most
+    ``max_evaluations`` times (see :func:`_slice_move`).
     """
-    # imported here: importing BlackJAX starts JAX's backend, which zhat.compile_small_loops
-    # must come before
-    import blackjax.mcmc.elliptical_slice as ess
-
+    if isinstance(max_evaluations, bool) or not isinstance(max_evaluations, int):
+        raise TypeError(f"max_evaluations must be a whole number; got {max_evaluations!r}.")
+    if max_evaluations < 1:
+        raise ValueError(f"max_evaluations must be at least 1; got {max_evaluations}.")
     sites = tuple(sites)
 
     def init(z: dict[str, Array], loglik_fn: LogDensityFn) -> AlgorithmState:
@@ -55,40 +61,74 @@ def build_kernel(sites: Sequence[str]) -> tuple[Callable, Callable]:
         return AlgorithmState(z, jnp.asarray(loglik_fn(z)), info)
 
     def step(rng_key: Array, state: Any, loglik_fn: LogDensityFn) -> tuple[AlgorithmState, Any]:
-        z, loglik = dict(state.z), state.logdensity
+        z, loglik = dict(state.z), jnp.asarray(state.logdensity)
         counts = []
         for i, site in enumerate(sites):
             value = z[site]
-            kernel = ess.build_kernel(
-                jnp.ones((value.size,), value.dtype), jnp.zeros((), value.dtype)
+
+            def site_loglik(v: Array, site: str = site, dtype=loglik.dtype) -> Array:
+                return jnp.asarray(loglik_fn({**z, site: v})).astype(dtype)
+
+            z[site], loglik, count = _slice_move(
+                random.fold_in(rng_key, i), value, loglik, site_loglik, max_evaluations
             )
-
-            def site_loglik(v: Array, site: str = site, dtype=value.dtype) -> Array:
-                return loglik_fn({**z, site: v.astype(dtype)}).astype(state.logdensity.dtype)
-
-            def move(key, value=value, loglik=loglik, kernel=kernel, site_loglik=site_loglik):
-                new, info = kernel(key, ess.EllipSliceState(value, loglik), site_loglik)
-                return (
-                    new.position.astype(value.dtype),
-                    jnp.asarray(new.logdensity, loglik.dtype),
-                    jnp.asarray(info.subiter, jnp.int32),
-                )
-
-            def stay(key, value=value, loglik=loglik):
-                return value, loglik, jnp.zeros((), jnp.int32)
-
-            # At a point of zero likelihood (an estimate that came out 0, or NaN) the slice
-            # level is -inf or NaN and the bracket would shrink forever without accepting:
-            # such a point keeps its value (the move is the identity there).
-            value, new_loglik, subiter = jax.lax.cond(
-                jnp.isfinite(loglik), move, stay, random.fold_in(rng_key, i)
-            )
-            z[site] = value
-            loglik = jnp.asarray(new_loglik).astype(state.logdensity.dtype)
-            counts.append(jnp.asarray(subiter, jnp.int32))
+            counts.append(count)
         return AlgorithmState(z, loglik, None), EllipticalSliceInfo(jnp.stack(counts))
 
     return init, step
+
+
+def _slice_move(
+    key: Array, u: Array, loglik: Array, site_loglik: Callable, max_evaluations: int
+) -> tuple[Array, Array, Array]:
+    """One elliptical slice move of ``u`` (prior N(0, I)); (new u, its log likelihood, the
+    number of likelihood evaluations).
+
+    Murray, Adams & MacKay (2010), Fig. 2: ν ~ N(0, I), level log y = log L(u) + log U, an
+    angle φ ~ U(0, 2π) with the bracket [φ − 2π, φ]; the point u cos φ + ν sin φ is accepted
+    if its log likelihood exceeds the level, else the bracket shrinks to the side of 0 that
+    holds φ and φ is drawn again in it. The bracket closes in on φ = 0, the current point, so
+    for a likelihood continuous in u the loop ends. For an estimator that is piecewise constant
+    in u it ends too, provided the likelihood recomputed at (nearly) the current point is not
+    below the level, which rounding can break when U is within rounding of 1 (the level is then
+    the current value itself); and at a point of zero likelihood (an estimate of 0) no point
+    near it is accepted at all. So the loop stops after ``max_evaluations`` evaluations, and u
+    then keeps its value: a move from u to u' is found at the k-th evaluation exactly when the
+    reverse move from u' (with the same angles) is, so stopping after a fixed number leaves
+    the move reversible. A NaN likelihood is never accepted.
+    """
+    k_nu, k_level, k_angle, k_shrink = random.split(key, 4)
+    dtype = u.dtype
+    nu = random.normal(k_nu, u.shape, dtype)
+    level = loglik + jnp.log(random.uniform(k_level, (), loglik.dtype))
+    two_pi = 2.0 * jnp.pi
+    phi = random.uniform(k_angle, (), loglik.dtype, 0.0, two_pi)
+
+    def point(phi: Array) -> Array:
+        return (u * jnp.cos(phi).astype(dtype) + nu * jnp.sin(phi).astype(dtype)).astype(dtype)
+
+    def proposal(phi: Array) -> tuple[Array, Array]:
+        x = point(phi)
+        return x, site_loglik(x)
+
+    x, ll = proposal(phi)
+
+    def rejected(carry) -> Array:
+        _, ll, _, _, _, count = carry
+        return ~(ll > level) & (count < max_evaluations)
+
+    def shrink(carry):
+        _, _, phi, low, high, count = carry
+        low = jnp.where(phi < 0, phi, low)
+        high = jnp.where(phi > 0, phi, high)
+        phi = random.uniform(random.fold_in(k_shrink, count), (), loglik.dtype, low, high)
+        x, ll = proposal(phi)
+        return x, ll, phi, low, high, count + 1
+
+    start = (x, ll, phi, phi - two_pi, phi, jnp.ones((), jnp.int32))
+    x, ll, *_, count = lax.while_loop(rejected, shrink, start)
+    accepted = ll > level
+    return jnp.where(accepted, x, u), jnp.where(accepted, ll, loglik), count
 
 
 class EllipticalSlice(NoiseKernel):
