@@ -9,6 +9,7 @@ within the phase is subtracted from its wall time (:class:`CompileClock`).
 
 from __future__ import annotations
 
+import argparse
 import contextlib
 import os
 import time
@@ -147,3 +148,22 @@ def load_average() -> tuple[float, ...]:
         return tuple(round(x, 2) for x in os.getloadavg())
     except OSError:
         return ()
+
+
+def add_loops_option(parser: argparse.ArgumentParser, extra_help: str = "") -> None:
+    """``--loops whole|default``: whether the process calls ``zhat.compile_small_loops()``."""
+    parser.add_argument(
+        "--loops",
+        choices=["whole", "default"],
+        default="whole",
+        help="whole: zhat.compile_small_loops() first (the default, as the zhat command does); "
+        "default: XLA's default loop runtime" + extra_help,
+    )
+
+
+def apply_loops_option(args: argparse.Namespace) -> None:
+    """Call ``zhat.compile_small_loops()`` for ``--loops whole``; before any computation."""
+    if args.loops == "whole":
+        import zhat
+
+        zhat.compile_small_loops()

@@ -135,6 +135,8 @@ import zhat
 from _common import (
     Budget,
     CompileClock,
+    add_loops_option,
+    apply_loops_option,
     listening,
     load_average,
     posterior_summary,
@@ -425,10 +427,7 @@ def part_a(settings: dict[str, Any]) -> dict[str, Any]:
     calls: dict[str, list[int]] = {name: [] for name in variants}
     for _ in range(rounds):
         for name, (fn, units) in variants.items():
-            # calls one after the other (each on the state the last one left) for at least
-            # round_seconds, as timeit repeats a statement: one call alone would be timed with
-            # the dispatch and synchronisation of a jitted call (about 40 µs) and with its
-            # noise block still out of cache after the other variants ran
+            # calls one after the other for at least round_seconds (module docstring, (a))
             count, t = 0, time.perf_counter()
             while True:
                 fn()
@@ -1499,16 +1498,9 @@ def main(argv: list[str] | None = None) -> None:
     parser.add_argument(
         "--part", choices=["a"], help="run one part alone (a: simulator throughput)"
     )
-    parser.add_argument(
-        "--loops",
-        choices=["whole", "default"],
-        default="whole",
-        help="whole: zhat.compile_small_loops() first (the default, as the zhat command does); "
-        "default: XLA's default loop runtime",
-    )
+    add_loops_option(parser)
     args = parser.parse_args(argv)
-    if args.loops == "whole":
-        zhat.compile_small_loops()  # before the first computation of this process
+    apply_loops_option(args)
     mode = "quick" if args.quick else "full"
     settings = {**SETTINGS[mode], "loops": args.loops}
     cache = tempfile.mkdtemp(prefix="zhat-lattice-bench-")

@@ -66,8 +66,7 @@ from jax import lax  # noqa: E402
 from jax.scipy.special import ndtr  # noqa: E402
 
 import _network_samplers as samplers_part  # noqa: E402
-import zhat  # noqa: E402
-from _common import load_average  # noqa: E402
+from _common import add_loops_option, apply_loops_option, load_average  # noqa: E402
 from zhat.families import network  # noqa: E402
 from zhat.families.network.toggles import run, toggle_moves, toggle_simulators  # noqa: E402
 from zhat.model.unnormalized import Transition  # noqa: E402
@@ -324,17 +323,11 @@ def main(argv: list[str] | None = None) -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--quick", action="store_true", help="fewer toggles and repeats")
     parser.add_argument("--part", choices=["toggles", "samplers"], help="run this part only")
-    parser.add_argument(
-        "--loops",
-        choices=["whole", "default"],
-        default="whole",
-        help="whole: zhat.compile_small_loops() (the default, as the zhat command sets it); "
-        "default: XLA's default loop runtime. With 'whole' the toggles part is also run with "
-        "'default' in a child process, and both are reported",
+    add_loops_option(
+        parser, ". With 'whole' the toggles part is also run with 'default' in a child process"
     )
     args = parser.parse_args(argv)
-    if args.loops == "whole":
-        zhat.compile_small_loops()  # before the first computation of this process
+    apply_loops_option(args)
     mode = "quick" if args.quick else "full"
     settings = SETTINGS[mode]
     load_before = load_average()

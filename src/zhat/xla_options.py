@@ -54,15 +54,7 @@ def merged_flags(flags: str, max_bytes: int = DEFAULT_MAX_BYTES) -> str:
     ``key=value`` pairs; pairs already there are kept in it (a second entry is not added).
     """
     _check_bytes(max_bytes)
-    pairs: dict[str, str | None] = {}
-    kept = []
-    for token in flags.split():
-        if token.startswith(EXTRA):
-            for item in filter(None, token[len(EXTRA) :].split(",")):
-                key, sep, value = item.partition("=")
-                pairs[key] = value if sep else None
-        else:
-            kept.append(token)
+    kept, pairs = _split_flags(flags)
     pairs[OPTION] = str(max_bytes)
     extra = ",".join(k if v is None else f"{k}={v}" for k, v in pairs.items())
     return " ".join([*kept, EXTRA + extra])
@@ -75,14 +67,23 @@ def small_loops_threshold() -> int | None:
     loop layout by it (zhat's toggle samplers) assumes it was set before, as
     :func:`compile_small_loops` ensures.
     """
-    value = None
-    for token in os.environ.get("XLA_FLAGS", "").split():
+    text = _split_flags(os.environ.get("XLA_FLAGS", ""))[1].get(OPTION)
+    return int(text) if text is not None and text.isdigit() else None
+
+
+def _split_flags(flags: str) -> tuple[list[str], dict[str, str | None]]:
+    """The flags other than the backend options, and the backend options as key → value
+    (None for a key given without a value)."""
+    kept: list[str] = []
+    pairs: dict[str, str | None] = {}
+    for token in flags.split():
         if token.startswith(EXTRA):
-            for item in token[len(EXTRA) :].split(","):
-                key, _, text = item.partition("=")
-                if key == OPTION and text.isdigit():
-                    value = int(text)
-    return value
+            for item in filter(None, token[len(EXTRA) :].split(",")):
+                key, sep, value = item.partition("=")
+                pairs[key] = value if sep else None
+        else:
+            kept.append(token)
+    return kept, pairs
 
 
 def compile_small_loops(max_bytes: int = DEFAULT_MAX_BYTES) -> None:
@@ -92,10 +93,9 @@ def compile_small_loops(max_bytes: int = DEFAULT_MAX_BYTES) -> None:
     :raises RuntimeError: if JAX's backend has already started (the option would have no
         effect); calling it again with the same value is allowed.
     """
-    current = os.environ.get("XLA_FLAGS", "")
-    wanted = merged_flags(current, max_bytes)
+    wanted = merged_flags(os.environ.get("XLA_FLAGS", ""), max_bytes)
     if _backend_started():
-        if f"{OPTION}={max_bytes}" in current:
+        if small_loops_threshold() == max_bytes:
             return
         raise RuntimeError(
             "compile_small_loops() must run before JAX's first computation: XLA reads its "

@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import argparse
 import math
-import os
 import sys
 from pathlib import Path
 from typing import Any
@@ -386,6 +385,6 @@ def main_exit() -> None:
     """
     from zhat import xla_options
 
-    if xla_options.OPTION not in os.environ.get("XLA_FLAGS", ""):
+    if xla_options.small_loops_threshold() is None:
         xla_options.compile_small_loops()
     sys.exit(main())

@@ -105,7 +105,7 @@ def _slice_move(
     phi = random.uniform(k_angle, (), loglik.dtype, 0.0, two_pi)
 
     def point(phi: Array) -> Array:
-        return (u * jnp.cos(phi).astype(dtype) + nu * jnp.sin(phi).astype(dtype)).astype(dtype)
+        return u * jnp.cos(phi).astype(dtype) + nu * jnp.sin(phi).astype(dtype)
 
     def proposal(phi: Array) -> tuple[Array, Array]:
         x = point(phi)
